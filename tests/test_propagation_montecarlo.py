@@ -214,3 +214,18 @@ def test_coverage_interval_rule_jcgm101_7_7_1():
     y = np.arange(1.0, 41.0)
     assert coverage_interval(y, 0.95) == (1.0, 39.0)
     assert shortest_interval(y, 0.95) == (1.0, 39.0)
+
+
+def test_student_t_block_is_multivariate_t():
+    """Readings that share one residual-based noise estimate (one block, one dof) are drawn
+    with one scale per draw: their mean over sqrt(n) is Student t with nu dof (JCGM 101
+    6.4.9 generalised to a block), whereas independent t draws would be nearly normal."""
+    nu = 4
+    items = [
+        InputQuantity(f"r{i}", 0.0, 1.0, distribution="t", dof=nu, block="readings")
+        for i in range(10)
+    ]
+    X = InputSet(items).sample(100_000, 8)
+    m = X.mean(axis=1) * math.sqrt(10)
+    assert stats.kstest(m[:20_000], stats.t(nu).cdf).pvalue > 1e-4
+    assert stats.kstest(m[:20_000], stats.norm(scale=math.sqrt(nu / (nu - 2))).cdf).pvalue < 1e-6

@@ -440,7 +440,8 @@ class InputSet:
         """``n`` joint draws of all inputs, shape (n, p) (JCGM 101 6.4).
 
         Correlated inputs are drawn from a multivariate normal distribution (JCGM 101
-        6.4.8); a correlated input with another distribution is an error, because its joint
+        6.4.8); Student t inputs that share a block and degrees of freedom from a
+        multivariate t (6.4.9, one scale per draw for the block); a correlated input with another distribution is an error, because its joint
         distribution would not be defined by the correlation coefficient alone.
         """
         gen = as_generator(rng)
@@ -451,9 +452,22 @@ class InputSet:
             {self.index(nm) for pair, r in self.correlations.items() if r != 0.0 for nm in pair}
         )
         corr_set = set(correlated)
+        # Student t inputs of one block with one dof share their scale: the block is drawn
+        # from a multivariate t (a normal vector over one chi-square), as when the readings of
+        # one table share a noise level estimated from their residuals (JCGM 101 6.4.9).
+        t_blocks: dict[tuple[str, float], list[int]] = {}
         for i, q in enumerate(self.inputs):
-            if i not in corr_set:
+            if i in corr_set:
+                continue
+            if q.distribution == "t" and q.block is not None:
+                t_blocks.setdefault((q.block, q.dof), []).append(i)
+            else:
                 out[:, i] = q.sample(n, gen)
+        for (_, nu), idx_list in t_blocks.items():
+            ii = np.array(idx_list)
+            scale = np.sqrt(nu / gen.chisquare(nu, n))
+            z = gen.standard_normal((n, ii.size)) * scale[:, None]
+            out[:, ii] = self.values[ii] + z * self.u[ii]
         if correlated:
             for i in correlated:
                 q = self.inputs[i]
