@@ -84,7 +84,7 @@ class RunModel:
     hydroxide:
         Function of the input array giving the excess-reagent concentration (mol/L).
     temperature:
-        Input index of the run's actual temperature (K), or ``None``.
+        Function of the input array giving the run's actual temperature (K), or ``None``.
     between:
         Input index of the run-to-run relative scatter delta_r, or ``None``.
     method:
@@ -106,7 +106,7 @@ class RunModel:
     final_pathlength: int | None
     initial: ColumnFunction | None
     hydroxide: ColumnFunction
-    temperature: int | None
+    temperature: ColumnFunction | None
     between: int | None
     method: str = "exponential"
     start: NDArray[np.float64] = field(default_factory=lambda: np.array([0.0, 1.0, 1e-3]))
@@ -128,7 +128,8 @@ class RunModel:
         if self.baseline == "zero":
             return np.zeros(X.shape[0])
         if self.baseline == "measured":
-            assert self.final_absorbance is not None and self.final_pathlength is not None
+            if self.final_absorbance is None or self.final_pathlength is None:
+                raise ValueError(f"run {self.name}: a measured baseline needs its inputs")
             A = X[:, self.final_absorbance]
             for i in self.offsets:
                 A = A - X[:, i]
@@ -152,6 +153,7 @@ class RunModel:
             initial=a0,
             start=self.start if start is None else start,
             warn=False,
+            covariance=False,
         )
         return res.params, res.converged
 
@@ -200,7 +202,8 @@ class BatchStudyModel:
     stated_temperature:
         T_s (K): the temperature the results are stated at (the study temperature).
     activation_energy:
-        Input index of E_a (J/mol), or ``None`` (then temperatures are not used).
+        Function of the input array giving E_a (J/mol), or ``None`` (then temperatures are
+        not used).
     reference_temperature:
         T_ref (K) for ``second_order_rate_constant_at_reference``, or ``None``.
     mean_weights:
@@ -212,7 +215,7 @@ class BatchStudyModel:
 
     runs: tuple[RunModel, ...]
     stated_temperature: float
-    activation_energy: int | None = None
+    activation_energy: ColumnFunction | None = None
     reference_temperature: float | None = None
     mean_weights: NDArray[np.float64] | None = None
     order_weights: NDArray[np.float64] | None = None
@@ -292,12 +295,10 @@ class BatchStudyModel:
         oh = np.column_stack([run.hydroxide(X) for run in self.runs])
         factor = np.ones_like(kp)
         if self.activation_energy is not None:
-            Ea = X[:, self.activation_energy][:, None]
+            Ea = self.activation_energy(X)
             for j, run in enumerate(self.runs):
                 if run.temperature is not None:
-                    factor[:, j] = arrhenius_factor(
-                        Ea[:, 0], self.stated_temperature, X[:, run.temperature]
-                    )
+                    factor[:, j] = arrhenius_factor(Ea, self.stated_temperature, run.temperature(X))
         for j, run in enumerate(self.runs):
             if run.between is not None:
                 factor[:, j] *= 1.0 + X[:, run.between]
@@ -322,8 +323,9 @@ class BatchStudyModel:
             cols.append(b[:, None])
             cols.append(np.exp(ln_kb)[:, None])
         if self.mean_weights is not None and self.reference_temperature is not None:
-            assert self.activation_energy is not None
-            Ea = X[:, self.activation_energy]
+            if self.activation_energy is None:
+                raise ValueError("a reference temperature needs the activation energy")
+            Ea = self.activation_energy(X)
             k_ref = k_mean * arrhenius_factor(
                 Ea, self.reference_temperature, self.stated_temperature
             )

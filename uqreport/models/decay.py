@@ -115,7 +115,11 @@ def _fixed(v: ArrayLike | None, N: int) -> NDArray[np.float64] | None:
 def _design(
     t: NDArray[np.float64], theta: NDArray[np.float64], free: NDArray[np.bool_]
 ) -> tuple[NDArray[np.float64], list[NDArray[np.float64]]]:
-    """Model values (N, n) and the Jacobian columns of the free parameters."""
+    """Model values (N, n) and the Jacobian columns of the free parameters.
+
+    The last column is d f / d k = -(a0 - c) t e; the exponential e = exp(-k t) is the
+    second column when a0 is free, and is recovered from the rate column otherwise.
+    """
     c, a0, k = theta[:, 0:1], theta[:, 1:2], theta[:, 2:3]
     e = np.exp(-k * t)
     d = a0 - c
@@ -143,6 +147,94 @@ def _normal_equations(
         for j in range(i, q):
             A[:, i, j] = A[:, j, i] = np.einsum("ij,ij->i", wcols[i], cols[j])
     return A, g
+
+
+def _curvature(
+    t: NDArray[np.float64],
+    theta: NDArray[np.float64],
+    free: NDArray[np.bool_],
+    w: NDArray[np.float64],
+    r: NDArray[np.float64],
+    rate_column: NDArray[np.float64],
+) -> NDArray[np.float64]:
+    """sum_j w_j r_j d2f_j/dtheta dtheta^T over the free parameters, (N, q, q).
+
+    Newton's Hessian of S/2 is J^T W J minus this term; only the k row and column are
+    non-zero (d2f/dk2 = (a0 - c) t^2 e, d2f/dc dk = t e, d2f/da0 dk = -t e).  With
+    ``rate_column`` = -(a0 - c) t e: t e = -rate_column / (a0 - c).
+    """
+    d = theta[:, 1] - theta[:, 0]
+    wr_col = w * r * rate_column  # = -(a0 - c) w r t e
+    s2 = -np.einsum("ij,ij->i", wr_col, t)  # (a0 - c) sum w r t^2 e
+    with np.errstate(divide="ignore", invalid="ignore"):
+        s1 = -wr_col.sum(axis=1) / d  # sum w r t e
+    q = int(free.sum())
+    R = np.zeros((t.shape[0], q, q))
+    R[:, q - 1, q - 1] = s2
+    j = 0
+    if free[0]:
+        R[:, j, q - 1] = R[:, q - 1, j] = s1
+        j += 1
+    if free[1]:
+        R[:, j, q - 1] = R[:, q - 1, j] = -s1
+    return R
+
+
+def _small_step(
+    delta: NDArray[np.float64], theta_free: NDArray[np.float64], A: NDArray[np.float64], rtol: float
+) -> NDArray[np.bool_]:
+    """A step is converged when below rtol relative to the parameter, or below 1e-5 of the
+    parameter's standard error (1/sqrt(A_ii), a lower bound of it).  The step is still
+    applied, so the error left is far smaller (quadratic convergence near the minimum):
+    far below any uncertainty the fit reports and below what the numerical Jacobian
+    resolves."""
+    se = 1.0 / np.sqrt(np.maximum(np.diagonal(A, axis1=1, axis2=2), 1e-300))
+    tol = np.maximum(rtol * np.abs(theta_free), 1e-5 * se)
+    return np.all(np.abs(delta) <= tol, axis=1)
+
+
+def _solve(
+    M: NDArray[np.float64], g: NDArray[np.float64]
+) -> tuple[NDArray[np.float64], NDArray[np.bool_]]:
+    """Batched solve of M delta = g for q <= 3 by the adjugate (closed form, vectorised).
+
+    Rows with a singular or non-finite M get delta = 0 and ok = False instead of failing the
+    whole batch.
+    """
+    q = M.shape[1]
+    if q == 1:
+        det = M[:, 0, 0]
+        adj = np.ones_like(M)
+    elif q == 2:
+        a, b, c, d = M[:, 0, 0], M[:, 0, 1], M[:, 1, 0], M[:, 1, 1]
+        det = a * d - b * c
+        adj = np.stack([np.stack([d, -b], axis=1), np.stack([-c, a], axis=1)], axis=1)
+    else:
+        m = M
+        c00 = m[:, 1, 1] * m[:, 2, 2] - m[:, 1, 2] * m[:, 2, 1]
+        c01 = m[:, 0, 2] * m[:, 2, 1] - m[:, 0, 1] * m[:, 2, 2]
+        c02 = m[:, 0, 1] * m[:, 1, 2] - m[:, 0, 2] * m[:, 1, 1]
+        c10 = m[:, 1, 2] * m[:, 2, 0] - m[:, 1, 0] * m[:, 2, 2]
+        c11 = m[:, 0, 0] * m[:, 2, 2] - m[:, 0, 2] * m[:, 2, 0]
+        c12 = m[:, 0, 2] * m[:, 1, 0] - m[:, 0, 0] * m[:, 1, 2]
+        c20 = m[:, 1, 0] * m[:, 2, 1] - m[:, 1, 1] * m[:, 2, 0]
+        c21 = m[:, 0, 1] * m[:, 2, 0] - m[:, 0, 0] * m[:, 2, 1]
+        c22 = m[:, 0, 0] * m[:, 1, 1] - m[:, 0, 1] * m[:, 1, 0]
+        det = m[:, 0, 0] * c00 + m[:, 0, 1] * c10 + m[:, 0, 2] * c20
+        adj = np.stack(
+            [
+                np.stack([c00, c01, c02], 1),
+                np.stack([c10, c11, c12], 1),
+                np.stack([c20, c21, c22], 1),
+            ],
+            axis=1,
+        )
+    scale = np.prod(np.abs(np.diagonal(M, axis1=1, axis2=2)), axis=1)
+    with np.errstate(all="ignore"):
+        ok = np.isfinite(det) & (np.abs(det) > 1e-14 * scale) & np.all(np.isfinite(g), axis=1)
+        delta = np.einsum("nij,nj->ni", adj, g) / np.where(ok, det, 1.0)[:, None]
+    delta[~ok] = 0.0
+    return delta, ok
 
 
 def _grid_start(
@@ -204,6 +296,7 @@ def _levenberg_marquardt(
     free: NDArray[np.bool_],
     max_iter: int,
     rtol: float,
+    newton_steps: int = 0,
 ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64], NDArray[np.bool_], int]:
     """Damped Gauss-Newton over all data sets at once; one exponential per iteration.
 
@@ -218,20 +311,50 @@ def _levenberg_marquardt(
     r = a - f
     S = np.sum(w * r * r, axis=1)
     A, g = _normal_equations(cols, w, r)
-    lam = np.full(N, 1e-6)
     done = np.zeros(N, dtype=bool)
-    eye = np.eye(q)
-    act = np.arange(N)
-    ta, aa, wa = t, a, w
     it = 0
+    if newton_steps:
+        # Newton's method from a good start (Monte Carlo draws near the nominal solution):
+        # the exact Hessian (with the residual-curvature term) converges quadratically, one
+        # evaluation per step.  A row whose sum of squares rises, whose Hessian is singular
+        # or whose step stays large goes on to the damped iteration below.
+        S0 = S.copy()
+        act = np.arange(N)
+        ta, aa, wa = t, a, w
+        th, Sa, Aa, ga, ra, ka = theta.copy(), S.copy(), A.copy(), g.copy(), r, cols[-1]
+        with np.errstate(all="ignore"):
+            for it in range(1, newton_steps + 1):
+                H = Aa - _curvature(ta, th, free, wa, ra, ka)
+                delta, solved = _solve(H, ga)
+                small = _small_step(delta, th[:, free], Aa, rtol) & solved
+                th[:, free] += delta
+                f, cols = _design(ta, th, free)
+                ra = aa - f
+                ka = cols[-1]
+                Sa = np.sum(wa * ra * ra, axis=1)
+                Aa, ga = _normal_equations(cols, wa, ra)
+                good = np.isfinite(Sa) & (th[:, 2] > 0) & (Sa <= S0[act] * (1.0 + 1e-9) + 1e-300)
+                fin = small & good
+                rows = act[fin]
+                theta[rows], S[rows], A[rows], g[rows] = th[fin], Sa[fin], Aa[fin], ga[fin]
+                done[rows] = True
+                keep = ~fin & good & solved
+                if it == newton_steps or not keep.any():
+                    break
+                act, ta, aa, wa = act[keep], ta[keep], aa[keep], wa[keep]
+                th, Sa, Aa, ga = th[keep], Sa[keep], Aa[keep], ga[keep]
+                ra, ka = ra[keep], ka[keep]
+        # rows not finished keep their starting point and go on with damping
+    lam = np.full(N, 1e-6)
+    eye = np.eye(q)
+    act = np.flatnonzero(~done)
+    ta, aa, wa = t[act], a[act], w[act]
     for it in range(1, max_iter + 1):  # noqa: B007 - the count is returned
         if act.size == 0:
             break
         Aa = A[act]
         D = np.diagonal(Aa, axis1=1, axis2=2)
-        delta = np.linalg.solve(
-            Aa + lam[act, None, None] * (D[:, :, None] * eye), g[act][:, :, None]
-        )[:, :, 0]
+        delta, _ = _solve(Aa + lam[act, None, None] * (D[:, :, None] * eye), g[act])
         th = theta[act]
         trial = th.copy()
         trial[:, free] += delta
@@ -241,7 +364,7 @@ def _levenberg_marquardt(
         St[~(trial[:, 2] > 0) | ~np.isfinite(St)] = np.inf
         Sa = S[act]
         accept = St <= Sa * (1.0 + 1e-13)
-        small = np.all(np.abs(delta) <= rtol * (np.abs(th[:, free]) + 1e-300), axis=1)
+        small = _small_step(delta, th[:, free], Aa, rtol)
         # the decrease Gauss-Newton predicts (g . delta) is at the rounding level of S
         small |= np.einsum("ij,ij->i", g[act], delta) <= 1e-13 * Sa + 1e-300
         if np.any(accept):
@@ -275,6 +398,7 @@ def fit_decay(
     max_iter: int = 200,
     rtol: float = 1e-8,
     warn: bool = True,
+    covariance: bool = True,
 ) -> DecayFit:
     """Fit f(t) = c + (a0 - c) exp(-k t) to one or many data sets by weighted least squares.
 
@@ -294,6 +418,9 @@ def fit_decay(
     warn:
         Emit a :class:`~uqreport.errors.ConvergenceWarning` when some data sets did not
         converge.
+    covariance:
+        Compute the parameter covariance (skip it for Monte Carlo refits, which need only
+        the estimates).
     """
     t2 = _as_2d(t, "t")
     a2 = _as_2d(a, "a")
@@ -321,15 +448,18 @@ def fit_decay(
     if start is None:
         theta = _grid_start(t2, a2, w2, theta, free)
 
-    theta, S, A, converged, it = _levenberg_marquardt(t2, a2, w2, theta, free, max_iter, rtol)
+    theta, S, A, converged, it = _levenberg_marquardt(
+        t2, a2, w2, theta, free, max_iter, rtol, newton_steps=6 if start is not None else 0
+    )
     # covariance (known-sigma form) from the normal equations at the solution
     cov = np.zeros((N, 3, 3))
-    idx = np.flatnonzero(free)
-    try:
-        inv = np.linalg.inv(A)
-    except np.linalg.LinAlgError:
-        inv = np.linalg.pinv(A)
-    cov[:, idx[:, None], idx[None, :]] = inv
+    if covariance:
+        idx = np.flatnonzero(free)
+        try:
+            inv = np.linalg.inv(A)
+        except np.linalg.LinAlgError:
+            inv = np.linalg.pinv(A)
+        cov[:, idx[:, None], idx[None, :]] = inv
     if warn and not np.all(converged):
         warnings.warn(
             f"decay fit: {int((~converged).sum())} of {N} data sets did not converge in"

@@ -252,6 +252,7 @@ def propagate_montecarlo(
     batch_size: int | None = None,
     chunk_bytes: int = DEFAULT_CHUNK_BYTES,
     keep_samples: bool = True,
+    targets: tuple[str, ...] | None = None,
 ) -> MonteCarloResult:
     """Propagate the input distributions through ``model`` by Monte Carlo (JCGM 101).
 
@@ -279,11 +280,19 @@ def propagate_montecarlo(
         Memory for one vectorised evaluation; the draws are evaluated in chunks.
     keep_samples:
         Keep the output draws on the result (needed for plots and shares).
+    targets:
+        Names of the outputs whose tolerance stops the adaptive procedure (default: all);
+        the others are reported with the draws the targets needed.
     """
     if not (0.0 < coverage < 1.0):
         raise InputError(f"coverage probability must lie in (0, 1), got {coverage!r}.")
     gen = as_generator(rng)
     chunk = _chunk_size(model, chunk_bytes)
+    watch = (
+        np.arange(model.n_outputs)
+        if targets is None
+        else np.array([model.output_names.index(t) for t in targets], dtype=int)
+    )
     if draws is not None:
         if draws < 100:
             raise InputError(f"Monte Carlo needs at least 100 draws, got {draws}.")
@@ -303,9 +312,9 @@ def propagate_montecarlo(
             stats.append(_batch_stats(Yb, coverage))
             h = len(batches)
             if h >= 2:
-                S = np.array(stats)  # (h, 4, m)
+                S = np.array(stats)[:, :, watch]  # (h, 4, m)
                 s = S.std(axis=0, ddof=1) / math.sqrt(h)  # (4, m)
-                u_all = np.concatenate(batches).std(axis=0, ddof=1)
+                u_all = np.concatenate(batches)[:, watch].std(axis=0, ddof=1)
                 delta = np.array([numerical_tolerance(float(v), ndig) for v in u_all])
                 if np.all(2.0 * s <= delta[None, :]):
                     converged = True

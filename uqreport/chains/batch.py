@@ -1,0 +1,954 @@
+"""The batch-kinetics chain: from an experiment's batch runs to the measurement model.
+
+This module turns the experiment file's ``[batch]`` section into the inputs and the
+vectorised :class:`~uqreport.models.batch.BatchStudyModel`, and runs the checks a
+practitioner expects (excess ratio, linear absorbance range, residual patterns, drift).
+The model itself is generic; every number is then computed by the engines.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+
+import numpy as np
+from numpy.typing import NDArray
+from scipy import stats
+
+from ..errors import ExperimentError, InputError, Problem
+from ..experiment import Experiment
+from ..inputs import InputQuantity
+from ..model import MeasurementModel
+from ..models.batch import BatchStudyModel, RunModel
+from ..models.decay import decay_curve, fit_decay
+from ..propagation import propagate_linear
+from ..regression import linear_least_squares
+from .common import (
+    GROUPS,
+    concentration_column,
+    nominal,
+    quantity_column,
+    temperature_column,
+    volume_column,
+)
+from .registry import Column, InputRegistry
+
+__all__ = ["BatchChain", "Finding", "RunFit", "build_batch_chain"]
+
+#: Below this excess ratio [OH]/[D]0 the pseudo-first-order model is refused.
+EXCESS_RATIO_ERROR = 5.0
+#: Below this excess ratio a warning says what it does to k (rule of thumb: at least 10x).
+EXCESS_RATIO_WARNING = 10.0
+#: Fewest readings in a run's fit window.
+MIN_READINGS = 5
+
+
+@dataclass(frozen=True)
+class Finding:
+    """A check's outcome: ``level`` "warning" or "note", the run it is about, and text."""
+
+    level: str
+    check: str
+    message: str
+    run: str | None = None
+
+    def as_dict(self) -> dict[str, str | None]:
+        return {"level": self.level, "check": self.check, "run": self.run, "message": self.message}
+
+
+@dataclass(frozen=True)
+class RunFit:
+    """The nominal fit of one batch run, for tables, plots and checks.
+
+    Attributes
+    ----------
+    name, table:
+        Run name and the table file name.
+    lines:
+        File line numbers of every reading, shape (n_all,).
+    times, absorbance:
+        Recorded times (s) and observed absorbances of every reading.
+    used:
+        Which readings are in the fit.
+    reasons:
+        Why each excluded reading was excluded ("" for used ones).
+    pathlength:
+        Nominal pathlength of each reading's cuvette (cm).
+    params:
+        Fitted (A_inf, A_0, k') in absorbance units of the run's first cuvette, k' in 1/s.
+    covariance:
+        Covariance of ``params`` from the fit alone (readings' noise; known-sigma form
+        scaled by ``noise_scale``^2).
+    sigma:
+        Standard uncertainty of each used reading (effective: noise and lag jitter), A.
+    residuals:
+        Observed minus fitted absorbance of the used readings.
+    chi2, dof:
+        Weighted residual sum of squares with the noise model's sigma, and n - p.
+    noise_source:
+        "spec" (the noise model's sigma) or "residuals" (sigma scaled by the residual SD).
+    noise_scale:
+        sqrt(chi2/dof) when the noise is from the residuals, else 1.
+    runs_test_p, lag1:
+        One-sided Wald-Wolfowitz runs test p-value (too few sign changes) and lag-1
+        autocorrelation of the weighted residuals.
+    drift_t:
+        t statistic of a straight line through the residuals of the last third of the run.
+    log_linear_rate, log_linear_u:
+        k' and its u from the ln(A - A_inf) straight line (cross-check; A_inf as fitted).
+    excess_ratio:
+        [OH]/[D]0, or ``None`` when the initial dye concentration is unknown.
+    time_origin:
+        Lag added to the recorded times at the estimates (s).
+    """
+
+    name: str
+    table: str
+    lines: NDArray[np.int64]
+    times: NDArray[np.float64]
+    absorbance: NDArray[np.float64]
+    used: NDArray[np.bool_]
+    reasons: tuple[str, ...]
+    pathlength: NDArray[np.float64]
+    params: NDArray[np.float64]
+    covariance: NDArray[np.float64]
+    sigma: NDArray[np.float64]
+    residuals: NDArray[np.float64]
+    chi2: float
+    dof: int
+    noise_source: str
+    noise_scale: float
+    runs_test_p: float
+    lag1: float
+    drift_t: float
+    log_linear_rate: float
+    log_linear_u: float
+    excess_ratio: float | None
+    time_origin: float
+
+    def curve(self, t: NDArray[np.float64]) -> NDArray[np.float64]:
+        """The fitted absorbance at recorded times ``t``."""
+        c, a0, k = self.params
+        return decay_curve(np.asarray(t) + self.time_origin, c, a0, k)
+
+
+@dataclass(frozen=True)
+class BatchChain:
+    """The batch chain, ready for the engines.
+
+    Attributes
+    ----------
+    model:
+        The measurement model (inputs and the vectorised study function).
+    study:
+        The :class:`BatchStudyModel` inside ``model``.
+    fits:
+        Nominal fit of each run.
+    findings:
+        Check results (warnings and notes).
+    consistency:
+        Across-run statistics: chi2, dof, birge_ratio, p_value, tau (relative run-to-run
+        scatter found, 0 when consistent), weights.
+    headline:
+        Output names to state on the summary page.
+    """
+
+    model: MeasurementModel
+    study: BatchStudyModel
+    fits: tuple[RunFit, ...]
+    findings: tuple[Finding, ...]
+    consistency: dict[str, object] = field(default_factory=dict)
+    headline: tuple[str, ...] = ()
+
+
+def _runs_test(signs: NDArray[np.float64]) -> float:
+    """One-sided Wald-Wolfowitz runs test: p of as few sign runs as observed (or fewer)."""
+    s = signs[signs != 0]
+    n1, n2 = int((s > 0).sum()), int((s < 0).sum())
+    n = n1 + n2
+    if n1 == 0 or n2 == 0 or n < 4:
+        return 1.0
+    runs = 1 + int(np.sum(s[1:] != s[:-1]))
+    mu = 2.0 * n1 * n2 / n + 1.0
+    var = 2.0 * n1 * n2 * (2.0 * n1 * n2 - n) / (n * n * (n - 1.0))
+    if var <= 0:
+        return 1.0
+    return float(stats.norm.cdf((runs + 0.5 - mu) / math.sqrt(var)))
+
+
+def _lag1(e: NDArray[np.float64]) -> float:
+    d = float(np.sum(e * e))
+    return float(np.sum(e[1:] * e[:-1]) / d) if d > 0 else 0.0
+
+
+def _drift_t(t: NDArray[np.float64], e: NDArray[np.float64]) -> float:
+    m = len(t) // 3
+    if m < 4:
+        return 0.0
+    tt, ee = t[-m:], e[-m:]
+    X = np.column_stack([np.ones(m), tt - tt.mean()])
+    fit = linear_least_squares(X, ee)
+    return float(fit.params[1] / fit.std_errors[1]) if fit.std_errors[1] > 0 else 0.0
+
+
+class _Builder:
+    """Collects inputs, runs and findings while reading the experiment's batch section."""
+
+    def __init__(self, exp: Experiment):
+        self.exp = exp
+        self.reg = InputRegistry()
+        self.problems: list[Problem] = []
+        self.findings: list[Finding] = []
+        self.fits: list[RunFit] = []
+        self.runs: list[RunModel] = []
+        self.fname = exp.path.name
+
+    # -- shared inputs ----------------------------------------------------------------
+    def offsets(self, blank: str | None) -> tuple[int, ...]:
+        idx: list[int] = []
+        sp = self.exp.spectrophotometer
+        if blank is not None:
+            b = self.exp.blanks[blank]
+            if not b.offset.exact:
+                idx.append(
+                    self.reg.add(
+                        b.offset.to_input(
+                            f"blank/{blank}",
+                            group=GROUPS["blank"],
+                            description=f"zero offset left after blank '{blank}'",
+                        ),
+                        key=b.offset.key,
+                    )
+                )
+        if sp.photometric_accuracy is not None and not sp.photometric_accuracy.exact:
+            idx.append(
+                self.reg.add(
+                    sp.photometric_accuracy.to_input(
+                        "photometric_accuracy",
+                        group=GROUPS["photometric"],
+                        description="photometric accuracy of the spectrophotometer (offset)",
+                    ),
+                    key=sp.photometric_accuracy.key,
+                )
+            )
+        return tuple(idx)
+
+    def pathlength(self, cuvette: str) -> int | float:
+        c = self.exp.cuvettes[cuvette]
+        if c.pathlength.exact:
+            return c.pathlength.value
+        return self.reg.add(
+            c.pathlength.to_input(
+                f"pathlength/{cuvette}",
+                group=GROUPS["pathlength"],
+                description=f"pathlength of cuvette '{cuvette}'",
+            ),
+            key=c.pathlength.key,
+        )
+
+    def ensure_index(self, value_or_index: int | float, name: str, unit: str) -> int:
+        if isinstance(value_or_index, int):
+            return value_or_index
+        return self.reg.add(
+            InputQuantity(name, float(value_or_index), 0.0, unit=unit, group=GROUPS["pathlength"])
+        )
+
+    # -- one run --------------------------------------------------------------------------
+    def run(self, run, section) -> None:
+        exp = self.exp
+        where = f"{self.fname}: batch.runs[{run.name}]"
+        frame = run.table.frame
+        tname = run.table.path.name
+        t_rec = frame["time"].to_numpy(dtype=float)
+        A = frame["absorbance"].to_numpy(dtype=float)
+        lines = np.asarray(run.table.line_numbers, dtype=np.int64)
+        n_all = len(t_rec)
+        sp = exp.spectrophotometer
+        lin_limit = section.linear_limit.value
+        floor = section.noise_floor.value
+        s0 = sp.noise_sd.value
+        srel = sp.noise_relative.value if section.noise_model == "proportional" else 0.0
+
+        # cuvettes per reading
+        cuv_col = frame["cuvette"].astype(str).to_numpy() if "cuvette" in frame else None
+        default_cuv = run.cuvette
+        cuvettes: list[str] = []
+        for j in range(n_all):
+            cid = cuv_col[j] if cuv_col is not None and cuv_col[j] else default_cuv
+            if cid is None:
+                if len(exp.cuvettes) == 1:
+                    cid = next(iter(exp.cuvettes))
+                else:
+                    self.problems.append(
+                        Problem(
+                            f"{tname}, line {lines[j]}",
+                            "no cuvette is named for this reading and the run has no default.",
+                            f'set cuvette = "<id>" in batch.runs[{run.name}] or fill the'
+                            " table's cuvette column.",
+                        )
+                    )
+                    return
+            cuvettes.append(cid)
+
+        # exclusions
+        reasons = [""] * n_all
+        flags = (
+            frame["flag"].astype(str).str.strip().str.lower().to_numpy()
+            if "flag" in frame
+            else None
+        )
+        t0 = section.fit_start.value if section.fit_start is not None else -math.inf
+        t1 = section.fit_end.value if section.fit_end is not None else math.inf
+        blank_val = exp.blanks[run.blank].offset.value if run.blank else 0.0
+        blank_u = exp.blanks[run.blank].offset.u if run.blank else 0.0
+        far = blank_val - 5.0 * math.hypot(s0, blank_u)
+        for j in range(n_all):
+            if A[j] < far:
+                self.problems.append(
+                    Problem(
+                        f"{tname}, line {lines[j]}, column 'absorbance'",
+                        f"absorbance {A[j]:g} lies far below the blank ({blank_val:g};"
+                        f" more than 5 noise standard deviations).",
+                        "check that the blank was taken on the right solution and that the"
+                        " reading is not a typing error; flag it 'exclude' if it is faulty.",
+                    )
+                )
+            if flags is not None and flags[j] in ("exclude", "outlier"):
+                reasons[j] = f"flagged '{flags[j]}' in the table"
+            elif A[j] > lin_limit:
+                reasons[j] = f"above the linear limit ({lin_limit:g} A)"
+            elif A[j] < floor:
+                reasons[j] = f"below the noise floor ({floor:g} A)"
+            elif not (t0 <= t_rec[j] <= t1):
+                reasons[j] = "outside the fit window"
+        used = np.array([r == "" for r in reasons])
+        above = sum(1 for r in reasons if r.startswith("above"))
+        if above == n_all:
+            self.problems.append(
+                Problem(
+                    f"{where}",
+                    f"every reading of {tname} is above the linear limit ({lin_limit:g} A).",
+                    "dilute the dye (or use a shorter cuvette) so that the readings fall in the"
+                    " linear range, or raise spectrophotometer.linear_limit if the instrument is"
+                    " verified linear higher up.",
+                )
+            )
+            return
+        if used.sum() < MIN_READINGS:
+            self.problems.append(
+                Problem(
+                    f"{where}",
+                    f"only {int(used.sum())} readings of {tname} are in the fit"
+                    f" (at least {MIN_READINGS} are needed).",
+                    "record more readings, widen the fit window, or check the exclusions"
+                    " (linear limit, noise floor, flags).",
+                )
+            )
+            return
+        if above:
+            self.findings.append(
+                Finding(
+                    "warning",
+                    "linear range",
+                    f"{above} reading(s) above the linear limit ({lin_limit:g} A) were excluded;"
+                    " Beer-Lambert is not linear there.",
+                    run.name,
+                )
+            )
+
+        # timing
+        recorded_at = run.recorded_at
+        lag_spec = run.lag
+        jit_spec = run.jitter
+        if recorded_at == "draw" and lag_spec is None:
+            self.problems.append(
+                Problem(
+                    where,
+                    "times were recorded at the draw but no timing lag is given.",
+                    'give timing.lag = { value = ..., u = ..., unit = "s" } (the mean gap'
+                    " between drawing a sample and reading it).",
+                )
+            )
+            return
+        lag_val = lag_spec.value if lag_spec is not None else 0.0
+        u_jit = jit_spec.u if jit_spec is not None else 0.0
+
+        # nominal data
+        uj = np.flatnonzero(used)
+        offs = self.offsets(run.blank)
+        off_val = sum(self.reg.by_index(i).value for i in offs) if offs else 0.0
+        path_refs = [self.pathlength(c) for c in cuvettes]
+        l_nom = np.array(
+            [self.reg.by_index(p).value if isinstance(p, int) else p for p in path_refs]
+        )
+        a_nom = (A - off_val) / l_nom
+        t_nom = t_rec + lag_val
+
+        # concentrations
+        hydroxide = self.hydroxide(run, where)
+        dye0 = self.dye_initial(run)
+        if hydroxide is None:
+            return
+        oh_nom = nominal(hydroxide, self.reg)
+        d0_nom = nominal(dye0, self.reg) if dye0 is not None else None
+
+        # fit options
+        baseline_mode = section.baseline
+        final_idx = final_path = None
+        c_fix = None
+        if baseline_mode == "measured":
+            if run.final_absorbance is None:
+                self.problems.append(
+                    Problem(
+                        where,
+                        'baseline = "measured" but the run has no final_absorbance.',
+                        "give final_absorbance = { value = ..., u = ... } or set"
+                        ' batch.baseline = "fitted".',
+                    )
+                )
+                return
+            fa = run.final_absorbance
+            final_idx = self.reg.add(
+                InputQuantity(
+                    f"final_absorbance/{run.name}",
+                    fa.value,
+                    fa.u if fa.u > 0 else s0,
+                    unit="1",
+                    group=fa.group or GROUPS["noise"],
+                    source=fa.source or "measured after the decay (noise model)",
+                    description=f"measured final absorbance of run {run.name}",
+                ),
+                key=fa.key,
+            )
+            final_path = self.ensure_index(
+                path_refs[uj[-1]], f"pathlength/{cuvettes[uj[-1]]}", "cm"
+            )
+            c_fix = (fa.value - off_val) / l_nom[uj[-1]]
+        elif baseline_mode == "zero":
+            c_fix = 0.0
+        initial_fn: Column | None = None
+        a0_fix = None
+        if section.initial == "from_concentration":
+            chem = exp.chemistry
+            if chem is None or chem.molar_absorptivity is None or dye0 is None:
+                self.problems.append(
+                    Problem(
+                        where,
+                        'initial = "from_concentration" needs the molar absorptivity and the'
+                        " initial dye concentration.",
+                        "give chemistry.molar_absorptivity and the run's dye_concentration (or"
+                        ' dye_solution and dye_volume), or set batch.initial = "free".',
+                    )
+                )
+                return
+            eps = quantity_column(
+                self.reg,
+                chem.molar_absorptivity,
+                "molar_absorptivity",
+                group=GROUPS["absorptivity"],
+                description="molar absorptivity of the dye at the working wavelength",
+            )
+            initial_fn = lambda X, eps=eps, d0=dye0: eps(X) * d0(X)  # noqa: E731 - closure
+            a0_fix = nominal(initial_fn, self.reg)
+
+        method = getattr(section, "method", "exponential") or "exponential"
+        if method == "log-linear" and baseline_mode == "fitted":
+            self.problems.append(
+                Problem(
+                    f"{self.fname}: batch.method",
+                    'the log-linear fit needs a known baseline (A_inf), but baseline = "fitted".',
+                    'set batch.baseline = "zero" or "measured", or use method = "exponential".',
+                )
+            )
+            return
+
+        # nominal fit with the noise model, then with the lag jitter as effective variance
+        sig_A = np.sqrt(s0**2 + (srel * A) ** 2)
+        tu, au, lu = t_nom[uj], a_nom[uj], l_nom[uj]
+        w0 = lu**2 / sig_A[uj] ** 2
+        fit0 = fit_decay(tu, au, weights=w0, baseline=c_fix, initial=a0_fix, warn=False)
+        c, a0, k = fit0.params[0]
+        dadt = -k * (a0 - c) * np.exp(-k * tu) * lu
+        sig_eff = np.sqrt(sig_A[uj] ** 2 + (dadt * u_jit) ** 2)
+        w = lu**2 / sig_eff**2
+        fit1 = fit_decay(tu, au, weights=w, baseline=c_fix, initial=a0_fix, start=fit0.params[0])
+        if not fit1.converged[0]:
+            self.problems.append(
+                Problem(
+                    where,
+                    "the exponential fit of the readings did not converge.",
+                    "look at the data: is it a decay? Check the time column and the fit window.",
+                )
+            )
+            return
+        params = fit1.params[0]
+        dof = fit1.dof
+        chi2 = float(fit1.chi2[0])
+        noise_choice = getattr(section, "noise_source", "auto") or "auto"
+        crit = stats.chi2.ppf(0.95, dof)
+        use_resid = noise_choice == "residuals" or (noise_choice == "auto" and chi2 > crit)
+        scale = math.sqrt(chi2 / dof) if use_resid else 1.0
+        if noise_choice == "auto" and use_resid:
+            self.findings.append(
+                Finding(
+                    "warning",
+                    "noise model",
+                    f"the scatter about the fit is {scale:.2g} times the noise model's"
+                    f" (chi2 = {chi2:.3g} for {dof} degrees of freedom, above the 95 % point"
+                    f" {crit:.3g}); the readings' uncertainty is taken from the residuals.",
+                    run.name,
+                )
+            )
+
+        # inputs: readings, lag, jitter
+        block = f"absorbance/{run.name}"
+        reading_idx = []
+        for j_local, j in enumerate(uj):
+            u_read = sig_eff[j_local] * scale if use_resid else sig_A[j]
+            reading_idx.append(
+                self.reg.add(
+                    InputQuantity(
+                        f"absorbance/{run.name}/line{lines[j]}",
+                        float(A[j]),
+                        float(u_read),
+                        distribution="t" if use_resid else "normal",
+                        dof=float(dof) if use_resid else math.inf,
+                        kind="A" if use_resid else "B",
+                        unit="1",
+                        group=GROUPS["noise"],
+                        block=block,
+                        source=(
+                            f"residual scatter of the fit ({dof} degrees of freedom)"
+                            if use_resid
+                            else "spectrophotometer noise model"
+                        ),
+                        description=f"absorbance reading, {tname} line {lines[j]}",
+                    )
+                )
+            )
+        lag_idx = None
+        if lag_spec is not None and not lag_spec.exact:
+            lag_idx = self.reg.add(
+                lag_spec.to_input(
+                    f"lag/{run.name}",
+                    group=GROUPS["lag"],
+                    description=f"mean timing lag of run {run.name}",
+                )
+            )
+        jitter_idx = None
+        if u_jit > 0 and not use_resid:
+            jitter_idx = np.array(
+                [
+                    self.reg.add(
+                        InputQuantity(
+                            f"jitter/{run.name}/line{lines[j]}",
+                            0.0,
+                            u_jit,
+                            distribution=jit_spec.distribution,
+                            unit="s",
+                            group=GROUPS["lag"],
+                            block=f"jitter/{run.name}",
+                            source=jit_spec.source or "timing.jitter",
+                            description=f"timing jitter of the reading on line {lines[j]}",
+                        )
+                    )
+                    for j in uj
+                ]
+            )
+        path_idx = np.array(
+            [self.ensure_index(path_refs[j], f"pathlength/{cuvettes[j]}", "cm") for j in uj]
+        )
+
+        # temperature of the run
+        temp_idx = None
+        if exp.chemistry is not None and exp.chemistry.activation_energy is not None:
+            if run.temperature.key != exp.study.temperature.key:
+                col = temperature_column(self.reg, run.temperature, f"temperature/{run.name}")
+            else:
+                col = temperature_column(self.reg, exp.study.temperature, "temperature/study")
+            temp_idx = col
+
+        # cross-check: ln(A - A_inf) straight line
+        c_, a0_, k_ = params
+        y = au - c_
+        ok = y > 3.0 * sig_eff / lu
+        ll_rate = ll_u = math.nan
+        if ok.sum() >= 3:
+            X = np.column_stack([np.ones(int(ok.sum())), tu[ok]])
+            ll = linear_least_squares(X, np.log(y[ok]), sigma=(sig_eff / lu)[ok] / y[ok])
+            ll_rate, ll_u = float(-ll.params[1]), float(ll.std_errors[1])
+
+        # checks
+        fitted = decay_curve(tu, c_, a0_, k_)
+        resid_a = (au - fitted) * lu
+        wres = resid_a / sig_eff
+        rt = _runs_test(np.sign(wres))
+        r1 = _lag1(wres)
+        dt = _drift_t(tu, wres)
+        n_used = len(uj)
+        if rt < 0.01 or r1 > 2.33 / math.sqrt(n_used):
+            self.findings.append(
+                Finding(
+                    "warning",
+                    "residual pattern",
+                    f"the residuals run in long same-sign stretches (runs test p = {rt:.2g},"
+                    f" lag-1 autocorrelation {r1:.2f}): the decay may not be a single"
+                    " exponential (baseline drift, temperature change, a second process) or"
+                    " the fit window includes the mixing period.",
+                    run.name,
+                )
+            )
+        if abs(dt) > 3.0:
+            self.findings.append(
+                Finding(
+                    "warning",
+                    "end drift",
+                    f"the residuals of the last third of the run trend with time (t = {dt:.2g}):"
+                    " the absorbance drifts at the end (evaporation, settling, lamp drift or"
+                    " a slow side reaction).",
+                    run.name,
+                )
+            )
+        if math.isfinite(ll_rate):
+            u1 = math.sqrt(fit1.covariance[0][2, 2]) * scale
+            diff = abs(ll_rate - k_) / math.hypot(u1, ll_u)
+            if diff > 3.0 and baseline_mode == "fitted":
+                self.findings.append(
+                    Finding(
+                        "note",
+                        "log-linear cross-check",
+                        f"the ln(A - A_inf) straight line gives k' = {ll_rate:.4g} 1/s against"
+                        f" {k_:.4g} 1/s from the exponential fit ({diff:.1f} standard"
+                        " uncertainties apart); the log form weights late readings"
+                        " differently.",
+                        run.name,
+                    )
+                )
+        ratio = None
+        if d0_nom is not None and d0_nom > 0:
+            ratio = oh_nom / d0_nom
+        elif exp.chemistry is not None and exp.chemistry.molar_absorptivity is not None:
+            eps0 = exp.chemistry.molar_absorptivity.value
+            d0_est = (a0_ - c_) / eps0 if eps0 > 0 else 0.0
+            ratio = oh_nom / d0_est if d0_est > 0 else None
+        if ratio is not None:
+            if ratio < EXCESS_RATIO_ERROR:
+                self.problems.append(
+                    Problem(
+                        where,
+                        f"the excess ratio [OH]/[dye]0 is {ratio:.3g}: the excess reagent is"
+                        " used up noticeably during the run and the decay is not"
+                        " pseudo-first-order.",
+                        "use at least 10 times (better 20 times) more excess reagent than dye.",
+                    )
+                )
+                return
+            if ratio < EXCESS_RATIO_WARNING:
+                drop = 100.0 / ratio
+                self.findings.append(
+                    Finding(
+                        "warning",
+                        "excess ratio",
+                        f"[OH]/[dye]0 = {ratio:.3g} is below 10: [OH] falls by about"
+                        f" {drop:.0f} % over the run, so k' drifts down and k = k'/[OH] is"
+                        f" biased low by up to about {drop / 2:.0f} %.",
+                        run.name,
+                    )
+                )
+
+        l0 = lu[0]
+        cov = fit1.covariance[0] * scale**2
+        scale_vec = np.array([l0, l0, 1.0])
+        self.fits.append(
+            RunFit(
+                name=run.name,
+                table=tname,
+                lines=lines,
+                times=t_rec,
+                absorbance=A,
+                used=used,
+                reasons=tuple(reasons),
+                pathlength=l_nom,
+                params=params * scale_vec,
+                covariance=cov * np.outer(scale_vec, scale_vec),
+                sigma=sig_eff * (scale if use_resid else 1.0),
+                residuals=resid_a,
+                chi2=chi2,
+                dof=dof,
+                noise_source="residuals" if use_resid else "spec",
+                noise_scale=scale,
+                runs_test_p=rt,
+                lag1=r1,
+                drift_t=dt,
+                log_linear_rate=ll_rate,
+                log_linear_u=ll_u,
+                excess_ratio=ratio,
+                time_origin=lag_val,
+            )
+        )
+        self.runs.append(
+            RunModel(
+                name=run.name,
+                times=t_rec[uj],
+                reading=np.array(reading_idx),
+                pathlength=path_idx,
+                offsets=offs,
+                lag=lag_idx,
+                jitter=jitter_idx,
+                weights=w if method == "exponential" else (au - c_) ** 2 * w,
+                baseline=baseline_mode,
+                final_absorbance=final_idx,
+                final_pathlength=final_path,
+                initial=initial_fn,
+                hydroxide=hydroxide,
+                temperature=temp_idx,
+                between=None,
+                method=method,
+                start=params.copy(),
+            )
+        )
+
+    def hydroxide(self, run, where: str) -> Column | None:
+        exp = self.exp
+        if run.hydroxide_concentration is not None:
+            return quantity_column(
+                self.reg,
+                run.hydroxide_concentration,
+                f"hydroxide_concentration/{run.name}",
+                group=GROUPS["concentration"],
+                description=f"excess-reagent concentration in run {run.name}",
+            )
+        if run.hydroxide_solution is None or run.hydroxide_volume is None:
+            self.problems.append(
+                Problem(
+                    where,
+                    "the run has no excess-reagent (hydroxide) concentration.",
+                    'give hydroxide_concentration = { value = ..., u = ..., unit = "mol/L" }'
+                    " or hydroxide_solution and hydroxide_volume (with dye_volume and"
+                    " water_volume for the mixture).",
+                )
+            )
+            return None
+        c_oh = concentration_column(self.reg, exp, run.hydroxide_solution)
+        v_oh = volume_column(
+            self.reg, exp, run.hydroxide_volume, f"batch.runs[{run.name}].hydroxide_volume"
+        )
+        parts = [v_oh]
+        if run.dye_volume is not None:
+            parts.append(
+                volume_column(self.reg, exp, run.dye_volume, f"batch.runs[{run.name}].dye_volume")
+            )
+        if run.water_volume is not None:
+            parts.append(
+                volume_column(
+                    self.reg, exp, run.water_volume, f"batch.runs[{run.name}].water_volume"
+                )
+            )
+        return lambda X: c_oh(X) * v_oh(X) / sum(p(X) for p in parts)
+
+    def dye_initial(self, run) -> Column | None:
+        exp = self.exp
+        if run.dye_concentration is not None:
+            return quantity_column(
+                self.reg,
+                run.dye_concentration,
+                f"dye_concentration/{run.name}",
+                group=GROUPS["concentration"],
+                description=f"initial dye concentration in run {run.name}",
+            )
+        if run.dye_solution is None or run.dye_volume is None:
+            return None
+        c_d = concentration_column(self.reg, exp, run.dye_solution)
+        v_d = volume_column(self.reg, exp, run.dye_volume, f"batch.runs[{run.name}].dye_volume")
+        parts = [v_d]
+        if run.hydroxide_volume is not None:
+            parts.append(
+                volume_column(
+                    self.reg, exp, run.hydroxide_volume, f"batch.runs[{run.name}].hydroxide_volume"
+                )
+            )
+        if run.water_volume is not None:
+            parts.append(
+                volume_column(
+                    self.reg, exp, run.water_volume, f"batch.runs[{run.name}].water_volume"
+                )
+            )
+        return lambda X: c_d(X) * v_d(X) / sum(p(X) for p in parts)
+
+
+def _independent_variances(lin, rows: slice, n_runs: int) -> NDArray[np.float64]:
+    """Per-run variances of the outputs in ``rows`` from inputs that act on that run alone.
+
+    Inputs with a sensitivity in more than one run (a shared stock, the study temperature)
+    shift every run together; they do not make runs scatter and must not set the weights or
+    the consistency test (weighting by them is Peelle's puzzle).  The engines still carry
+    them in full through the model.
+    """
+    J = lin.jacobian[rows]
+    S = lin.input_covariance
+    contrib = np.abs(J) * np.sqrt(np.diag(S))[None, :]
+    scale = np.maximum(contrib.max(axis=1, keepdims=True), 1e-300)
+    shared = (contrib > 1e-9 * scale).sum(axis=0) > 1
+    keep = ~shared
+    Jk = J[:, keep]
+    return np.einsum("ri,ij,rj->r", Jk, S[np.ix_(keep, keep)], Jk)
+
+
+def build_batch_chain(exp: Experiment) -> BatchChain:
+    """Build the batch chain of ``exp`` (which must have a ``[batch]`` section).
+
+    Raises :class:`~uqreport.errors.ExperimentError` listing every problem found in the
+    runs (too few readings, all readings above the linear limit, a missing hydroxide
+    concentration, an excess ratio below 5, ...).
+    """
+    section = exp.batch
+    if section is None or not section.runs:
+        raise InputError(f"{exp.path.name}: there is no [batch] section with runs to analyse.")
+    b = _Builder(exp)
+    for run in section.runs:
+        b.run(run, section)
+    chem = exp.chemistry
+    Ea_col: Column | None = None
+    if chem is not None and chem.activation_energy is not None:
+        Ea_col = quantity_column(
+            b.reg,
+            chem.activation_energy,
+            "activation_energy",
+            group=GROUPS["activation_energy"],
+            description="activation energy of the reaction (Arrhenius)",
+        )
+    T_ref = exp.study.reference_temperature.value if exp.study.reference_temperature else None
+    if T_ref is not None and Ea_col is None:
+        b.problems.append(
+            Problem(
+                f"{b.fname}: study.reference_temperature",
+                "a reference temperature is set but the activation energy is not given.",
+                'give chemistry.activation_energy = { value = ..., u = ..., unit = "kJ/mol" }'
+                " or remove the reference temperature.",
+            )
+        )
+    if b.problems:
+        raise ExperimentError(b.problems)
+
+    runs = b.runs
+    R = len(runs)
+    T_s = exp.study.temperature.value
+    if Ea_col is None:
+        temps = [r.temperature.value for r in section.runs]
+        spread = (max(temps) - min(temps)) if temps else 0.0
+        b.findings.append(
+            Finding(
+                "note" if spread <= 0.2 else "warning",
+                "temperature",
+                "no activation energy is given, so the temperature uncertainty is not carried"
+                " into k and runs at different temperatures are not corrected to one"
+                + (f" (the run temperatures differ by {spread:.2g} K)" if spread > 0.2 else "")
+                + ". Give chemistry.activation_energy to carry it (k changes by about 8 % per"
+                " kelvin for E_a near 60 kJ/mol).",
+            )
+        )
+    if R >= 2:
+        b.findings.append(
+            Finding(
+                "note",
+                "ionic strength",
+                "runs at different excess-reagent concentrations also differ in ionic strength,"
+                " which changes k for an ion + counter-ion reaction (Bronsted-Bjerrum); the"
+                " analysis assumes that effect is small over the range used.",
+            )
+        )
+
+    # stage 1: per-run outputs, to find the weights of the across-run estimators
+    stage1 = BatchStudyModel(tuple(runs), T_s, Ea_col)
+    m1 = MeasurementModel(b.reg.input_set(), stage1.outputs(), stage1, name="batch kinetics")
+    lin1 = propagate_linear(m1)
+    k_r = lin1.values[2 * R : 3 * R]
+    var_k = _independent_variances(lin1, slice(2 * R, 3 * R), R)
+    consistency: dict[str, object] = {"runs": R}
+    tau_rel = 0.0
+    if R >= 2:
+        w = 1.0 / var_k
+        kbar = float(np.sum(w * k_r) / np.sum(w))
+        Q = float(np.sum(w * (k_r - kbar) ** 2))
+        dof = R - 1
+        tau2 = max(0.0, (Q - dof) / (np.sum(w) - np.sum(w**2) / np.sum(w)))
+        p_val = float(stats.chi2.sf(Q, dof))
+        birge = math.sqrt(Q / dof)
+        tau_rel = math.sqrt(tau2) / kbar if kbar > 0 else 0.0
+        consistency.update(chi2=Q, dof=dof, birge_ratio=birge, p_value=p_val, tau_relative=tau_rel)
+        if p_val < 0.05:
+            b.findings.append(
+                Finding(
+                    "warning",
+                    "run consistency",
+                    f"the runs' k = k'/[OH] disagree beyond their uncertainties (chi2 = {Q:.3g}"
+                    f" for {dof} degrees of freedom, Birge ratio {birge:.2g}, p = {p_val:.2g});"
+                    f" a run-to-run scatter of {100 * tau_rel:.2g} % (random-effects estimate)"
+                    " is carried as an input of its own.",
+                )
+            )
+    if tau_rel > 0:
+        runs = [
+            _with_between(
+                r,
+                b.reg.add(
+                    InputQuantity(
+                        f"between_run/{r.name}",
+                        0.0,
+                        tau_rel,
+                        dof=float(R - 1),
+                        kind="A",
+                        unit="1",
+                        group=GROUPS["between_run"],
+                        source=f"random-effects spread of the {R} runs (DerSimonian-Laird)",
+                        description=f"relative run-to-run scatter of run {r.name}",
+                    )
+                ),
+            )
+            for r in runs
+        ]
+    mean_w = 1.0 / (var_k + (tau_rel * k_r) ** 2)
+    mean_w = mean_w / mean_w.sum()
+    order_w = None
+    oh = lin1.values[R : 2 * R]
+    kp = lin1.values[:R]
+    if R >= 2 and np.ptp(np.log(oh)) > 0.01:
+        var_lnk = _independent_variances(lin1, slice(0, R), R) / kp**2
+        var_lnoh = _independent_variances(lin1, slice(R, 2 * R), R) / oh**2
+        order_w = 1.0 / (var_lnk + var_lnoh + tau_rel**2)
+        # effective variance with the slope found at b = 1 (errors in x, one iteration)
+        x, y = np.log(oh), np.log(kp)
+        slope = np.polyfit(x, y, 1, w=np.sqrt(order_w))[0]
+        order_w = 1.0 / (var_lnk + slope**2 * var_lnoh + tau_rel**2)
+        consistency["order_weights"] = (order_w / order_w.sum()).tolist()
+        if R < 3:
+            b.findings.append(
+                Finding(
+                    "warning",
+                    "order",
+                    "the order in the excess reagent comes from only two concentrations: the"
+                    " straight line ln k' against ln [OH] cannot be checked (use three or more).",
+                )
+            )
+    consistency["mean_weights"] = mean_w.tolist()
+    study = BatchStudyModel(
+        tuple(runs),
+        T_s,
+        Ea_col,
+        T_ref,
+        mean_w,
+        order_w,
+    )
+    model = MeasurementModel(b.reg.input_set(), study.outputs(), study, name="batch kinetics")
+    headline = ["second_order_rate_constant"]
+    if T_ref is not None:
+        headline.append("second_order_rate_constant_at_reference")
+    if order_w is not None:
+        headline.append("hydroxide_order")
+    return BatchChain(model, study, tuple(b.fits), tuple(b.findings), consistency, tuple(headline))
+
+
+def _with_between(run: RunModel, index: int) -> RunModel:
+    from dataclasses import replace
+
+    return replace(run, between=index)
