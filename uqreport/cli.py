@@ -1,0 +1,228 @@
+"""The ``uqreport`` command: a thin layer over the Python API.
+
+Exit codes: 0 success, 2 bad input (a clear message naming the file, key or row and the
+fix; no traceback), 1 an internal error.
+"""
+
+from __future__ import annotations
+
+import argparse
+import json
+import sys
+import traceback
+from collections.abc import Sequence
+from pathlib import Path
+
+from . import __version__
+from .errors import ExperimentError, InputError
+
+__all__ = ["main"]
+
+EXIT_OK = 0
+EXIT_INTERNAL = 1
+EXIT_INPUT = 2
+
+
+class _Parser(argparse.ArgumentParser):
+    def error(self, message: str) -> None:  # argparse exits 2 on usage errors: keep that
+        self.print_usage(sys.stderr)
+        self.exit(EXIT_INPUT, f"uqreport: error: {message}\n")
+
+
+def _positive_int(text: str) -> int:
+    try:
+        v = int(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a whole number, got '{text}'") from None
+    if v < 100:
+        raise argparse.ArgumentTypeError(f"at least 100 draws are needed, got {v}")
+    return v
+
+
+def _coverage(text: str) -> float:
+    try:
+        v = float(text)
+    except ValueError:
+        raise argparse.ArgumentTypeError(f"expected a probability, got '{text}'") from None
+    if not 0.5 <= v < 1.0:
+        raise argparse.ArgumentTypeError(f"coverage must be in [0.5, 1), got {v}")
+    return v
+
+
+def _parser() -> argparse.ArgumentParser:
+    p = _Parser(
+        prog="uqreport",
+        description=(
+            "Uncertainty reports for bench reaction-kinetics and stirred-tank studies:"
+            " linear propagation (GUM), Monte Carlo (JCGM 101) and a ranked error budget."
+        ),
+    )
+    p.add_argument("--version", action="version", version=f"uqreport {__version__}")
+    p.add_argument("--debug", action="store_true", help="show a traceback on internal errors")
+    sub = p.add_subparsers(dest="command", metavar="COMMAND")
+    sub.required = True
+
+    def engine_options(sp: argparse.ArgumentParser) -> None:
+        sp.add_argument("--seed", type=int, default=None, help="random seed (default 1)")
+        sp.add_argument(
+            "--draws",
+            type=_positive_int,
+            default=None,
+            help="fixed number of Monte Carlo draws (default: adaptive, JCGM 101 7.9)",
+        )
+        sp.add_argument(
+            "--coverage", type=_coverage, default=0.95, help="coverage probability (default 0.95)"
+        )
+        sp.add_argument("--no-montecarlo", action="store_true", help="linear propagation only")
+        sp.add_argument("--quiet", action="store_true", help="print nothing but errors")
+
+    d = sub.add_parser(
+        "demo",
+        help="simulate the invented demo study and analyse it",
+        description="Write an invented demo study (experiment.toml, tables, truth.json) into"
+        " --out, analyse it, and write the results beside it.",
+    )
+    d.add_argument("--out", required=True, type=Path, help="output folder")
+    d.add_argument("--force", action="store_true", help="write into a non-empty folder")
+    engine_options(d)
+
+    a = sub.add_parser(
+        "analyze",
+        help="analyse an experiment file",
+        description="Check and analyse EXPERIMENT; write results.json, budget.csv and fits.csv"
+        " into --out.",
+    )
+    a.add_argument("experiment", type=Path, help="the experiment file (TOML) or its folder")
+    a.add_argument("--out", required=True, type=Path, help="output folder")
+    engine_options(a)
+
+    c = sub.add_parser(
+        "check",
+        help="validate an experiment file and its tables without analysing",
+        description="Check EXPERIMENT and every table it names; list all problems at once.",
+    )
+    c.add_argument("experiment", type=Path, help="the experiment file (TOML) or its folder")
+    return p
+
+
+def _settings(args: argparse.Namespace):
+    from .analysis import DEFAULT_SEED, Settings
+
+    return Settings(
+        coverage=args.coverage,
+        seed=DEFAULT_SEED if args.seed is None else args.seed,
+        draws=args.draws,
+        montecarlo=not args.no_montecarlo,
+    )
+
+
+def _summary(res, out: Path) -> str:
+    lines = []
+    st = res.experiment.study
+    lines.append(f"{st.title} - {st.operator}, {st.date.isoformat()}")
+    for cname, q in res.headline:
+        ch = res.chains[cname]
+        est = ch.linear.estimate(q)
+        unit = "" if est.unit == "1" else f" {est.unit}"
+        line = (
+            f"  {q} = {est.value:.4g}{unit}, U = {est.U:.2g}{unit}"
+            f" (coverage factor {est.k:.3g}, {100 * est.coverage:g} % coverage)"
+        )
+        if ch.montecarlo is not None:
+            mc = ch.montecarlo.estimate(q)
+            v = ch.validation[q]
+            line += (
+                f"; Monte Carlo [{mc.low:.4g}, {mc.high:.4g}],"
+                f" {'validated' if v.validated else 'not validated'}"
+            )
+        lines.append(line)
+        b = ch.budgets[q]
+        top = ", ".join(f"{e.input} {100 * e.share:.0f} %" for e in b.top(3))
+        lines.append(f"    largest contributors: {top}")
+    n_warn = sum(1 for f in res.all_findings if f.level == "warning")
+    if n_warn:
+        lines.append(f"  {n_warn} warning(s): see results.json")
+        for f in res.all_findings:
+            if f.level == "warning":
+                lines.append(f"    - {'[' + f.run + '] ' if f.run else ''}{f.message}")
+    lines.append(f"  results written to {out}")
+    return "\n".join(lines)
+
+
+def _analyze(exp_path: Path, out: Path, args: argparse.Namespace, argv: list[str]) -> int:
+    from .analysis import analyze
+    from .results import write_results
+
+    res = analyze(exp_path, settings=_settings(args))
+    write_results(res, out, command_line=["uqreport", *argv])
+    if not args.quiet:
+        print(_summary(res, out))
+    return EXIT_OK
+
+
+def _demo(args: argparse.Namespace, argv: list[str]) -> int:
+    from .demo import write_demo
+
+    out: Path = args.out
+    if out.exists() and not out.is_dir():
+        raise InputError(f"--out {out} exists and is not a folder. Fix: name a folder.")
+    if out.is_dir() and any(out.iterdir()) and not args.force:
+        truth = out / "truth.json"
+        ok = False
+        if truth.is_file():
+            try:
+                ok = bool(json.loads(truth.read_text(encoding="utf-8")).get("invented"))
+            except (OSError, ValueError):
+                ok = False
+        if not ok:
+            raise InputError(
+                f"--out {out} is not empty and does not hold an earlier demo; the demo would"
+                " overwrite files there. Fix: name a new or empty folder, or add --force."
+            )
+    seed = 7 if args.seed is None else args.seed
+    write_demo(out, seed=seed)
+    args.seed = seed
+    return _analyze(out / "experiment.toml", out, args, argv)
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Run the command line; returns the exit code."""
+    args_list = list(sys.argv[1:] if argv is None else argv)
+    parser = _parser()
+    args = parser.parse_args(args_list)
+    try:
+        if args.command == "check":
+            from .experiment import check_experiment
+
+            exp = check_experiment(args.experiment)
+            n_tables = len(exp.files) - 1
+            print(f"{exp.path}: no problems found ({n_tables} table(s) checked).")
+            return EXIT_OK
+        if args.command == "analyze":
+            return _analyze(args.experiment, args.out, args, args_list)
+        if args.command == "demo":
+            return _demo(args, args_list)
+    except ExperimentError as exc:
+        print(f"uqreport: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except InputError as exc:
+        print(f"uqreport: error: {exc}", file=sys.stderr)
+        return EXIT_INPUT
+    except KeyboardInterrupt:
+        print("uqreport: interrupted", file=sys.stderr)
+        return EXIT_INTERNAL
+    except Exception as exc:  # an internal error: say so plainly, traceback on request
+        if args.debug:
+            traceback.print_exc()
+        print(
+            f"uqreport: internal error ({type(exc).__name__}: {exc}). This is a bug in"
+            " uqreport; rerun with --debug for the traceback and report it.",
+            file=sys.stderr,
+        )
+        return EXIT_INTERNAL
+    parser.error(f"unknown command {args.command}")
+    return EXIT_INPUT
+
+
+if __name__ == "__main__":  # pragma: no cover
+    raise SystemExit(main())
