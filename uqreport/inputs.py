@@ -441,8 +441,9 @@ class InputSet:
 
         Correlated inputs are drawn from a multivariate normal distribution (JCGM 101
         6.4.8); Student t inputs that share a block and degrees of freedom from a
-        multivariate t (6.4.9, one scale per draw for the block); a correlated input with another distribution is an error, because its joint
-        distribution would not be defined by the correlation coefficient alone.
+        multivariate t (6.4.9, one scale per draw for the block); a correlated input with
+        another distribution is an error, because its joint distribution would not be
+        defined by the correlation coefficient alone.
         """
         gen = as_generator(rng)
         n = int(n)

@@ -451,7 +451,7 @@ class _Builder:
             initial_fn = lambda X, eps=eps, d0=dye0: eps(X) * d0(X)  # noqa: E731 - closure
             a0_fix = nominal(initial_fn, self.reg)
 
-        method = getattr(section, "method", "exponential") or "exponential"
+        method = section.method
         if method == "log-linear" and baseline_mode == "fitted":
             self.problems.append(
                 Problem(
@@ -484,7 +484,7 @@ class _Builder:
         params = fit1.params[0]
         dof = fit1.dof
         chi2 = float(fit1.chi2[0])
-        noise_choice = getattr(section, "noise_source", "auto") or "auto"
+        noise_choice = section.noise_source
         crit = stats.chi2.ppf(0.95, dof)
         use_resid = noise_choice == "residuals" or (noise_choice == "auto" and chi2 > crit)
         scale = math.sqrt(chi2 / dof) if use_resid else 1.0

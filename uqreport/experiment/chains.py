@@ -205,6 +205,13 @@ class BatchSection:
         concentration, molar absorptivity and pathlength).
     noise_model:
         ``"constant"`` or ``"proportional"`` reading noise.
+    noise_source:
+        ``"auto"`` (the noise model unless the scatter about the fit is larger at the 95 %
+        level, then the residuals), ``"spec"`` (always the noise model) or ``"residuals"``
+        (always the scatter about the fit, Type A with n - p degrees of freedom).
+    method:
+        ``"exponential"`` (weighted nonlinear fit of A(t)) or ``"log-linear"`` (weighted
+        straight line ln(A - A_inf) against t; needs a known baseline).
     fit_start, fit_end:
         Time window of the fit (plain, s), or ``None``.
     linear_limit, noise_floor:
@@ -216,6 +223,8 @@ class BatchSection:
     baseline: str
     initial: str
     noise_model: str
+    noise_source: str
+    method: str
     fit_start: QuantitySpec | None
     fit_end: QuantitySpec | None
     linear_limit: QuantitySpec
@@ -232,8 +241,11 @@ def _build_batch(r: Record) -> BatchSection:
         r.add("fit_end", f"fit_end ({end.value:g} s) is not after fit_start ({start.value:g} s).",
               "give a fit window with fit_start < fit_end.")
     runs = tuple(x for x in (r["runs"] or ()) if x is not None)
-    return BatchSection(r["baseline"], r["initial"], r["noise_model"], start, end,
-                        linear, floor, runs)  # type: ignore[arg-type]
+    if r["method"] == "log-linear" and r["baseline"] == "fitted":
+        r.add("method", "method = 'log-linear' needs a known baseline, but baseline = 'fitted'.",
+              "set baseline = 'zero' or 'measured', or use method = 'exponential'.")
+    return BatchSection(r["baseline"], r["initial"], r["noise_model"], r["noise_source"],
+                        r["method"], start, end, linear, floor, runs)  # type: ignore[arg-type]
 
 
 BATCH = register_section(Field("batch", "record", "batch runs", record=RecordSpec((
@@ -243,6 +255,10 @@ BATCH = register_section(Field("batch", "record", "batch runs", record=RecordSpe
           default="free"),
     Field("noise_model", "enum", "reading noise", choices=("constant", "proportional"),
           default="constant"),
+    Field("noise_source", "enum", "where the readings' uncertainty comes from",
+          choices=("auto", "spec", "residuals"), default="auto"),
+    Field("method", "enum", "how each run is fitted", choices=("exponential", "log-linear"),
+          default="exponential"),
     Field("fit_start", "plain", "start of the fit window", dimension="time", low=0.0),
     Field("fit_end", "plain", "end of the fit window", dimension="time", low=0.0),
     Field("linear_limit", "plain", "upper end of the linear range", dimension="absorbance",

@@ -1,0 +1,198 @@
+"""The batch-kinetics chain end to end on simulated studies with known truth (the invented
+demo simulator), and the behaviours of shared inputs the method must get right."""
+
+from __future__ import annotations
+
+import json
+import math
+
+import numpy as np
+import pytest
+from batch_helpers import demo_study, edit_table, edit_toml, set_batch_option
+
+from uqreport.analysis import Settings, analyze
+from uqreport.budget import budget
+from uqreport.chains.batch import build_batch_chain
+from uqreport.experiment import load_experiment
+from uqreport.propagation import propagate_linear
+
+
+@pytest.fixture
+def demo(tmp_path):
+    return demo_study(tmp_path / "demo", seed=7)
+
+
+def _truth(path):
+    return json.loads((path.parent / "truth.json").read_text())["quantities"]
+
+
+def test_demo_recovers_truth_within_uncertainty(demo):
+    """Simulation with known truth: every batch quantity within 3 standard uncertainties."""
+    res = analyze(demo, settings=Settings(draws=4000, seed=3))
+    ch = res.chains["batch"]
+    truth = _truth(demo)
+    for name in ch.linear.output_names:
+        est = ch.linear.estimate(name)
+        assert abs(est.value - truth[name]) <= 3 * est.u, name
+    assert set(ch.headline) == {
+        "second_order_rate_constant",
+        "second_order_rate_constant_at_reference",
+        "hydroxide_order",
+    }
+
+
+def test_linear_and_monte_carlo_agree_or_validation_says_not(demo):
+    """JCGM 101 8: where the linear interval is validated the two agree within delta; where
+    not, the verdict says so and the d values exceed delta."""
+    res = analyze(demo, settings=Settings(draws=200_000, seed=5))
+    ch = res.chains["batch"]
+    for name in ch.linear.output_names:
+        lin = ch.linear.estimate(name)
+        mc = ch.montecarlo.estimate(name)
+        v = ch.validation[name]
+        # always: the two standard uncertainties agree to a few per cent (nearly linear model)
+        assert mc.u == pytest.approx(lin.u, rel=0.03), name
+        if v.validated:
+            assert abs(lin.value - lin.U - mc.low) <= v.delta
+            assert abs(lin.value + lin.U - mc.high) <= v.delta
+        else:
+            assert max(v.d_low, v.d_high) > v.delta
+
+
+def test_constant_lag_leaves_k_prime_unchanged_with_a0_free(demo):
+    """With A0 fitted, shifting every time by a constant only rescales A0 - A_inf: k' is
+    unchanged, so the mean lag has zero sensitivity (design card 3, "what cancels")."""
+    exp = load_experiment(demo)
+    ch = build_batch_chain(exp)
+    lin = propagate_linear(ch.model)
+    u_k = lin.u[lin.index("pseudo_rate_constant/r1")]
+    c = lin.sensitivity("pseudo_rate_constant/r1", "lag/r1")
+    assert abs(c) * 3.0 < 1e-6 * u_k  # u(lag) = 3 s contributes nothing
+    # and directly: shift the recorded times by 10 s and refit
+    k0 = lin.values[lin.index("pseudo_rate_constant/r1")]
+    edit_table(
+        demo.parent / "batch_r1.csv", lambda rows: [[str(float(r[0]) + 10), r[1]] for r in rows]
+    )
+    lin2 = propagate_linear(build_batch_chain(load_experiment(demo)).model)
+    assert lin2.values[lin2.index("pseudo_rate_constant/r1")] == pytest.approx(k0, rel=1e-9)
+
+
+def test_lag_matters_when_a0_is_fixed_from_concentration(demo):
+    """With A0 = eps l [D]0 fixed, a lag shifts the whole curve against a known start: k'
+    depends on it and the budget shows the timing lag."""
+    set_batch_option(demo, "initial", '"from_concentration"')
+    ch = build_batch_chain(load_experiment(demo))
+    lin = propagate_linear(ch.model)
+    name = "pseudo_rate_constant/r1"
+    c = lin.sensitivity(name, "lag/r1")
+    kp = lin.values[lin.index(name)]
+    # d k'/d lag: from A0 e^{-k'(t+lag)} fixed at t = 0, k' t_eff... at least 1e-3 k' per 3 s
+    assert abs(c) * 3.0 > 1e-3 * kp
+    b = budget(lin, name)
+    lag_entry = next(e for e in b.entries if e.input == "lag/r1")
+    assert lag_entry.share > 0.01
+    # the absorptivity and the dye concentration enter too, and pathlength no longer cancels
+    groups = {e.group: e.share for e in b.by_group}
+    assert groups["molar absorptivity"] > 0.01
+    assert groups["cuvette pathlength"] > 1e-4
+
+
+def test_blank_offset_cancels_with_fitted_baseline(demo):
+    """With A_inf fitted, a shared blank offset is absorbed into A_inf: zero sensitivity."""
+    lin = propagate_linear(build_batch_chain(load_experiment(demo)).model)
+    b = budget(lin, "pseudo_rate_constant/r1")
+    share = {e.group: e.share for e in b.by_group}
+    assert share["blank offset"] < 1e-12
+
+
+def test_blank_offset_biases_log_slope_and_is_ranked(demo):
+    """With A_inf taken as zero (the plain ln A slope), a blank offset biases k': the
+    sensitivity is of the sign and size of d ln(A - b)/dt, and the blank offset is a leading
+    budget entry, shared across the runs (design card 3)."""
+    set_batch_option(demo, "baseline", '"zero"')
+    set_batch_option(demo, "method", '"log-linear"')
+    lin = propagate_linear(build_batch_chain(load_experiment(demo)).model)
+    for run in ("r1", "r2", "r3"):
+        name = f"pseudo_rate_constant/{run}"
+        c = lin.sensitivity(name, "blank/b1")
+        # subtracting a larger blank from a decaying signal makes it fall faster: c > 0
+        assert c > 0
+        b = budget(lin, name)
+        ranked = [e.group for e in b.by_group if not e.is_cross_term]
+        assert ranked.index("blank offset") <= 2
+        assert b.share_of_group("blank offset") > 0.05
+    # shared by the runs: the k'_r are positively correlated through it
+    r = lin.correlation
+    i, j = lin.index("pseudo_rate_constant/r1"), lin.index("pseudo_rate_constant/r2")
+    assert r[i, j] > 0.05
+
+
+def test_shared_stock_correlates_runs_but_not_the_order(demo):
+    """One stock concentration shared by the three runs: it moves every [OH] by the same
+    factor, so it contributes to k but not to the order b (a slope in ln [OH])."""
+    lin = propagate_linear(build_batch_chain(load_experiment(demo)).model)
+    c_b = lin.sensitivity("hydroxide_order", "concentration/oh_stock")
+    c_k = lin.sensitivity("second_order_rate_constant", "concentration/oh_stock")
+    k = lin.values[lin.index("second_order_rate_constant")]
+    u_b = lin.u[lin.index("hydroxide_order")]
+    assert abs(c_b) * 0.0005 < 1e-6 * u_b  # u(stock) = 0.0005 mol/L: no share in u(b)
+    assert c_k == pytest.approx(-k / 0.100, rel=1e-3)  # k = k'/[OH], [OH] proportional to stock
+
+
+def test_temperature_term_follows_arrhenius(demo):
+    """d ln k / dT = E_a / (R T^2) (about 8 %/K for 60 kJ/mol, design card 2.1;
+    R = 8.314462618 J/(mol K), CODATA).  The input is the bath's actual temperature: a bath
+    warmer than stated made the runs faster, so k at the stated temperature is lower, and
+    the sensitivity is -E_a/(R T^2) k."""
+    lin = propagate_linear(build_batch_chain(load_experiment(demo)).model)
+    k = lin.values[lin.index("second_order_rate_constant")]
+    c = lin.sensitivity("second_order_rate_constant", "temperature/study")
+    T = 295.15
+    assert c / k == pytest.approx(-60.57e3 / (8.314462618 * T**2), rel=1e-4)
+
+
+def test_same_seed_same_numbers(demo):
+    a = analyze(demo, settings=Settings(draws=2000, seed=11)).chains["batch"]
+    b = analyze(demo, settings=Settings(draws=2000, seed=11)).chains["batch"]
+    assert np.array_equal(a.montecarlo.values, b.montecarlo.values)
+    assert np.array_equal(a.linear.values, b.linear.values)
+
+
+def test_linear_range_exclusion_is_flagged(demo):
+    """Readings above the linear limit are excluded from the fit and flagged (common
+    practice: the usable range ends near 1 A)."""
+    edit_table(demo.parent / "batch_r1.csv", lambda rows: [["10.0", "1.35"], *rows])
+    ch = build_batch_chain(load_experiment(demo))
+    fit = next(f for f in ch.fits if f.name == "r1")
+    assert not fit.used[0] and "linear limit" in fit.reasons[0]
+    assert any(f.check == "linear range" and f.run == "r1" for f in ch.findings)
+
+
+def test_low_excess_ratio_warns_with_the_effect_on_k(demo):
+    """Excess ratio [OH]/[dye]0 below 10: a warning that says k is biased low."""
+    # 2.5x the dye concentration gives [dye]0 ~ 2.3e-5 M: r1 ratio ~ 870, still fine; make
+    # the dye stock 300x stronger to bring r1 to about 7
+    edit_toml(demo, 'value = 4.6e-05, unit = "mol/L"', 'value = 0.0138, unit = "mol/L"')
+    ch = build_batch_chain(load_experiment(demo))
+    w = [f for f in ch.findings if f.check == "excess ratio"]
+    assert w and "biased low" in w[0].message
+    ratio = next(f for f in ch.fits if f.name == "r1").excess_ratio
+    assert 5 < ratio < 10
+
+
+def test_run_disagreement_adds_run_to_run_scatter(demo):
+    """A run whose k' is off by 20 % makes the runs inconsistent (chi-square test, Birge
+    ratio); a random-effects spread is carried as an input and u(k) grows."""
+    base = propagate_linear(build_batch_chain(load_experiment(demo)).model)
+    edit_table(
+        demo.parent / "batch_r2.csv",
+        lambda rows: [[str(float(r[0]) * 1.25), r[1]] for r in rows],
+    )
+    ch = build_batch_chain(load_experiment(demo))
+    assert ch.consistency["p_value"] < 0.05
+    assert ch.consistency["tau_relative"] > 0.02
+    assert any(f.check == "run consistency" for f in ch.findings)
+    lin = propagate_linear(ch.model)
+    j = lin.index("second_order_rate_constant")
+    assert lin.u[j] > base.u[base.index("second_order_rate_constant")]
+    assert math.isfinite(lin.dof[j]) and lin.dof[j] < 50
