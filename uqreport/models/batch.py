@@ -291,7 +291,15 @@ class BatchStudyModel:
         return kp
 
     def __call__(self, X: NDArray[np.float64]) -> NDArray[np.float64]:
-        kp = self.pseudo_rate_constants(X)
+        return self.combine(self.pseudo_rate_constants(X), X)
+
+    def combine(self, kp: NDArray[np.float64], X: NDArray[np.float64]) -> NDArray[np.float64]:
+        """All outputs from the runs' k'_r (N, R) and the input rows X (N, p).
+
+        The across-run part of the model on its own: the Bayesian layer calls it with
+        posterior draws of k'_r and prior draws of the other inputs, so that every engine
+        uses the same formulas for [OH]_r, the temperature correction, the mean and the order.
+        """
         oh = np.column_stack([run.hydroxide(X) for run in self.runs])
         factor = np.ones_like(kp)
         if self.activation_energy is not None:
