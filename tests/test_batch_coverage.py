@@ -1,0 +1,48 @@
+"""Calibration of the batch chain's intervals on simulated studies with known truth.
+
+The invented demo simulator draws every systematic input's true value from its stated
+distribution and generates the readings with random noise; the analysis must then cover the
+truth at the stated rate.  Bounds: binomial sampling error of a 95 % rate over n studies
+(sd = sqrt(0.95 x 0.05 / n)), about +/-2 sd.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+import pytest
+
+from uqreport.calibration import coverage_study
+
+QUANTITIES = (
+    "second_order_rate_constant",
+    "pseudo_rate_constant/r1",
+    "pseudo_rate_constant/r2",
+    "pseudo_rate_constant/r3",
+    "hydroxide_order",
+)
+
+
+def _check(res, low, high):
+    for method in ("linear", "montecarlo"):
+        for q in QUANTITIES:
+            rate = res.rate(method, q)
+            assert low <= rate <= high, f"{method} {q}: {rate:.3f} outside [{low}, {high}]"
+    for q in QUANTITIES:
+        z = np.array(res.z_scores[q])
+        # standardised errors: mean near 0 and sd near 1 (5 standard errors of each)
+        n = z.size
+        assert abs(z.mean()) < 5 / np.sqrt(n), q
+        assert abs(z.std(ddof=1) - 1) < 5 / np.sqrt(2 * n), q
+
+
+def test_coverage_100_studies():
+    """CI version: 100 studies; the 99 % binomial range of a 95 % rate is about 89-99 %."""
+    res = coverage_study(range(1000, 1100), QUANTITIES, draws=3000)
+    _check(res, 0.89, 0.99)
+
+
+@pytest.mark.slow
+def test_coverage_250_studies():
+    """Full study: 250 studies; the 95 % intervals cover in 92-98 % of cases."""
+    res = coverage_study(range(2000, 2250), QUANTITIES, draws=5000)
+    _check(res, 0.92, 0.98)
