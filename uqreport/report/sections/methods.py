@@ -1,0 +1,190 @@
+"""Comparison of the methods: linear (GUM), Monte Carlo (JCGM 101) and, when run, Bayesian
+intervals of the headline quantities, and the JCGM 101 validation of every quantity."""
+
+from __future__ import annotations
+
+from typing import Any
+
+from .. import fmt, pdf
+from ..figures import Interval, IntervalPanel, interval_figure
+from ..registry import ReportContext, Section, register_section
+from ._util import fig, label_of
+
+__all__ = ["build_methods"]
+
+
+def _iv(sc: fmt.Scale, low: Any, high: Any) -> str:
+    return f"[{sc.fmt(fmt.as_float(low))}, {sc.fmt(fmt.as_float(high))}]"
+
+
+def _intervals_table(ctx: ReportContext, names: list[str]) -> Any:
+    q = ctx.doc["quantities"]
+    has_mc = any("montecarlo" in q[n] for n in names)
+    has_by = any("bayes" in q[n] for n in names)
+    header = ["Quantity", "Unit", "Linear y ± U", "Linear interval"]
+    widths = [1.1, 1.1, 1.3, 1.4]
+    if has_mc:
+        header += ["Monte Carlo, symmetric", "Monte Carlo, shortest"]
+        widths += [1.4, 1.4]
+    if has_by:
+        header += ["Bayesian, equal tails", "Bayesian, highest density"]
+        widths += [1.4, 1.4]
+    rows = []
+    for n in names:
+        st = fmt.statement(ctx.doc, n)
+        sc = st.scale
+        lin = q[n]["linear"]
+        v, U = fmt.as_float(lin["value"]), fmt.as_float(lin["U"])
+        unit = " ".join(x for x in (sc.suffix.strip(), st.unit) if x) or "1"
+        row: list[Any] = [
+            pdf.Markup(st.label.symbol_markup),
+            unit,
+            f"{st.value} ± {st.U}",
+            _iv(sc, v - U, v + U),
+        ]
+        if has_mc:
+            mc = q[n].get("montecarlo")
+            row += (
+                [_iv(sc, mc["low"], mc["high"]), _iv(sc, mc["shortest_low"], mc["shortest_high"])]
+                if mc
+                else [None, None]
+            )
+        if has_by:
+            by = q[n].get("bayes")
+            row += (
+                [_iv(sc, by["low"], by["high"]), _iv(sc, by["hdi_low"], by["hdi_high"])]
+                if by
+                else [None, None]
+            )
+        rows.append(row)
+    return pdf.data_table(header, rows, widths=widths, align="LL" + "R" * (len(header) - 2))
+
+
+def _validation_table(ctx: ReportContext) -> Any | None:
+    q = ctx.doc["quantities"]
+    rows, flag = [], []
+    for n, rec in q.items():
+        mc = rec.get("montecarlo")
+        if not mc:
+            continue
+        val = mc.get("validation") or {}
+        lab = label_of(ctx.doc, n)
+        if not val.get("validated", mc.get("validated")):
+            flag.append(len(rows))
+        rows.append(
+            [
+                pdf.Markup(lab.symbol_markup + (" <b>*</b>" if rec.get("headline") else "")),
+                fmt.fmt_sig(rec["linear"]["u"], 3),
+                fmt.fmt_sig(mc["u"], 3),
+                fmt.fmt_sig(val.get("d_low"), 2),
+                fmt.fmt_sig(val.get("d_high"), 2),
+                fmt.fmt_sig(val.get("delta"), 2),
+                str(val.get("verdict", "")),
+            ]
+        )
+    if not rows:
+        return None
+    return pdf.data_table(
+        ["Quantity", "u, linear", "u, Monte Carlo", "d_low", "d_high", "δ", "Verdict"],
+        rows,
+        widths=[1.2, 0.9, 0.9, 0.8, 0.8, 0.8, 2.6],
+        align="LRRRRRL",
+        highlight=flag,
+    )
+
+
+def _panels(ctx: ReportContext, names: list[str]) -> list[IntervalPanel]:
+    q = ctx.doc["quantities"]
+    panels = []
+    for n in names:
+        st = fmt.statement(ctx.doc, n)
+        lin = q[n]["linear"]
+        v, U = fmt.as_float(lin["value"]), fmt.as_float(lin["U"])
+        ivs = [Interval("linear y ± U", v, v - U, v + U, "linear")]
+        mc = q[n].get("montecarlo")
+        if mc:
+            c = fmt.as_float(mc["value"])
+            ivs.append(
+                Interval(
+                    "MC symmetric",
+                    c,
+                    fmt.as_float(mc["low"]),
+                    fmt.as_float(mc["high"]),
+                    "montecarlo",
+                )
+            )
+            ivs.append(
+                Interval(
+                    "MC shortest",
+                    c,
+                    fmt.as_float(mc["shortest_low"]),
+                    fmt.as_float(mc["shortest_high"]),
+                    "montecarlo",
+                )
+            )
+        by = q[n].get("bayes")
+        if by:
+            m = fmt.as_float(by["median"])
+            ivs.append(
+                Interval(
+                    "Bayes equal tails",
+                    m,
+                    fmt.as_float(by["low"]),
+                    fmt.as_float(by["high"]),
+                    "bayes",
+                )
+            )
+            ivs.append(
+                Interval(
+                    "Bayes highest density",
+                    m,
+                    fmt.as_float(by["hdi_low"]),
+                    fmt.as_float(by["hdi_high"]),
+                    "bayes",
+                )
+            )
+        unit = st.unit or "dimensionless"
+        panels.append(
+            IntervalPanel(
+                f"{st.label.symbol}: {st.label.label}", f"{st.label.symbol} ({unit})", tuple(ivs)
+            )
+        )
+    return panels
+
+
+def build_methods(ctx: ReportContext) -> list:
+    names = [n for _c, n in fmt.headline_quantities(ctx.doc)]
+    if not names:
+        return []
+    cov = f"{100 * ctx.coverage:g} %"
+    out: list = [
+        pdf.para(
+            f"The {cov} intervals of the headline quantities by each method, on the scale of"
+            " the summary statements. The linear interval is y ± U; the Monte Carlo method"
+            " gives the probabilistically symmetric and the shortest interval of the output"
+            " distribution; the Bayesian posterior gives equal-tailed and highest-density"
+            " credible intervals. Where the model is nearly linear they agree."
+        )
+    ]
+    out += pdf.titled("Intervals of the headline quantities", _intervals_table(ctx, names))
+    out.append(
+        fig(
+            ctx,
+            interval_figure(_panels(ctx, names)),
+            "Intervals of each headline quantity by method (dot: the estimate, mean or median).",
+        )
+    )
+    vt = _validation_table(ctx)
+    if vt is not None:
+        out += pdf.titled(
+            "Validation of the linear method by Monte Carlo (JCGM 101, section 8)",
+            vt,
+            "d_low = |y − U − y_low| and d_high = |y + U − y_high| against the numerical"
+            " tolerance δ of the Monte Carlo result; the linear interval is validated when both"
+            " are within δ. * marks a headline quantity; shaded rows are not validated, and for"
+            " them the Monte Carlo interval is the one to state.",
+        )
+    return out
+
+
+register_section(Section("methods", "Comparison of the methods", 40, build_methods, new_page=True))
