@@ -94,3 +94,47 @@ def test_blocks_gather_inputs_into_one_entry():
     assert by["readings"].variance == pytest.approx(5 * (0.1 / 5) ** 2, rel=1e-9)
     assert math.isnan(by["readings"].sensitivity)
     assert by["readings"].members == ("r0", "r1", "r2", "r3", "r4")
+
+
+def test_monte_carlo_shares_equal_linear_on_a_linear_model():
+    """Linear additive model: the one-group-at-a-time Monte Carlo shares equal the linear
+    shares within Monte Carlo error (variance ratio of N draws: relative sd about
+    sqrt(2/N) per variance; common random numbers make the ratio tighter)."""
+    from uqreport.budget import monte_carlo_shares
+
+    ins = InputSet(
+        [
+            InputQuantity("a", 1.0, 0.1, group="g1"),
+            InputQuantity.from_half_width("b", 1.0, 0.3, "rectangular", group="g2"),
+            InputQuantity("c", 1.0, 0.3, group="g3"),
+        ]
+    )
+    model = columns_model(lambda a, b, c: 2 * a + 3 * b - c, ins, ["Y"])
+    res = propagate_linear(model)
+    n = 20_000
+    checks = monte_carlo_shares(res, model, draws=n, rng=5)["Y"]
+    tol = 5 * math.sqrt(2 / n)
+    for c in checks:
+        assert c.only_share == pytest.approx(c.linear_share, abs=tol)
+        assert c.frozen_share == pytest.approx(c.linear_share, abs=tol)
+        assert not c.flagged
+
+
+def test_monte_carlo_shares_depart_on_a_nonlinear_model_jcgm101_9_4():
+    """JCGM 101 9.4: Y = X1^2 + X2 at x1 = 0: the linear share of X1 is 0 (no first-order
+    term) while X1^2 has variance 2 u1^4; with u1 = u2 = 1 the true share of X1 is 2/3
+    (Var(X1^2) = 2, Var(X2) = 1).  The Monte Carlo shares depart upwards and are flagged."""
+    from uqreport.budget import monte_carlo_shares
+
+    ins = InputSet(
+        [InputQuantity("x1", 0.0, 1.0, group="g1"), InputQuantity("x2", 0.0, 1.0, group="g2")]
+    )
+    model = columns_model(lambda x1, x2: x1**2 + x2, ins, ["Y"])
+    res = propagate_linear(model)
+    checks = {c.group: c for c in monte_carlo_shares(res, model, draws=40_000, rng=6)["Y"]}
+    assert checks["g1"].linear_share == pytest.approx(0.0, abs=1e-9)
+    assert checks["g1"].only_share == pytest.approx(2 / 3, abs=0.03)
+    assert checks["g1"].frozen_share == pytest.approx(2 / 3, abs=0.03)
+    assert checks["g1"].flagged
+    assert checks["g2"].linear_share == pytest.approx(1.0)
+    assert checks["g2"].only_share == pytest.approx(1 / 3, abs=0.03)

@@ -9,7 +9,7 @@ the budgets, fits and findings in one :class:`StudyResult`.
 from __future__ import annotations
 
 import warnings
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 
 from ._numeric import as_generator
@@ -50,6 +50,8 @@ class Settings:
         Cap of the adaptive procedure.
     montecarlo:
         Whether Monte Carlo was run.
+    plan:
+        Whether the improvement planner was run.
     """
 
     coverage: float = 0.95
@@ -58,6 +60,7 @@ class Settings:
     ndig: int = 2
     max_draws: int = 1_000_000
     montecarlo: bool = True
+    plan: bool = True
 
     def as_dict(self) -> dict[str, object]:
         return {
@@ -67,6 +70,7 @@ class Settings:
             "ndig": self.ndig,
             "max_draws": self.max_draws,
             "montecarlo": self.montecarlo,
+            "plan": self.plan,
         }
 
 
@@ -120,12 +124,15 @@ class StudyResult:
         Results per chain, in analysis order.
     findings:
         Study-level findings (chains not analysed yet, engine warnings), after the chains'.
+    plan:
+        The improvement plan (:class:`uqreport.planner.Plan`), or ``None`` when not run.
     """
 
     experiment: Experiment
     settings: Settings
     chains: dict[str, ChainResult]
     findings: tuple[Finding, ...] = field(default_factory=tuple)
+    plan: object | None = None
 
     @property
     def all_findings(self) -> tuple[Finding, ...]:
@@ -204,4 +211,9 @@ def analyze(
                 + " in the experiment file.",
             )
         )
-    return StudyResult(exp, st, chains, tuple(findings))
+    res = StudyResult(exp, st, chains, tuple(findings))
+    if st.plan and chains:
+        from .planner import plan_study  # the planner builds on this module
+
+        res = replace(res, plan=plan_study(res))
+    return res

@@ -96,6 +96,20 @@ def _parser() -> argparse.ArgumentParser:
     a.add_argument("--out", required=True, type=Path, help="output folder")
     engine_options(a)
 
+    pl = sub.add_parser(
+        "plan",
+        help="rank what to improve next and what it would buy",
+        description="Analyse EXPERIMENT by linear propagation and print the improvement plan:"
+        " for each headline quantity the what-if cases ranked by the reduction of U, the"
+        " Monte Carlo check of the budget shares, and the sampling-schedule advice.",
+    )
+    pl.add_argument("experiment", type=Path, help="the experiment file (TOML) or its folder")
+    pl.add_argument("--out", type=Path, default=None, help="also write results.json here")
+    pl.add_argument("--seed", type=int, default=None, help="random seed (default 1)")
+    pl.add_argument(
+        "--coverage", type=_coverage, default=0.95, help="coverage probability (default 0.95)"
+    )
+
     c = sub.add_parser(
         "check",
         help="validate an experiment file and its tables without analysing",
@@ -147,6 +161,64 @@ def _summary(res, out: Path) -> str:
                 lines.append(f"    - {'[' + f.run + '] ' if f.run else ''}{f.message}")
     lines.append(f"  results written to {out}")
     return "\n".join(lines)
+
+
+def _plan_table(res) -> str:
+    plan = res.plan
+    lines = [f"Improvement plan: {res.experiment.study.title}"]
+    for q, qp in plan.quantities.items():
+        unit = "" if qp.unit == "1" else f" {qp.unit}"
+        lines.append("")
+        lines.append(f"{q}: U = {qp.U:.2g}{unit} (coverage factor {qp.k:.3g})")
+        lines.append(f"  {'rank':>4}  {'group':<22} {'improvement':<58} {'U new':>9} {'gain':>6}")
+        for i, c in enumerate(qp.cases[:10], start=1):
+            lines.append(
+                f"  {i:>4}  {c.group:<22} {c.description[:58]:<58} {c.U_new:>9.2g}"
+                f" {c.reduction_percent:>5.0f}%"
+            )
+        lines.append(f"  {qp.verdict}")
+        flagged = [c for c in plan.shares_check.get(q, ()) if c.flagged]
+        for c in flagged:
+            lines.append(
+                f"  note: the Monte Carlo share of {c.group} ({100 * c.only_share:.0f} % varied"
+                f" alone, {100 * c.frozen_share:.0f} % frozen) differs from the linear share"
+                f" ({100 * c.linear_share:.0f} %) by more than 10 points: the model is"
+                " nonlinear over this group's range."
+            )
+    if plan.schedule:
+        lines.append("")
+        lines.append("Sampling schedule (equally spaced readings; u(k') from the fit alone):")
+        lines.append(
+            f"  {'run':<10} {'n':>3} {'spacing now':>12} {'to half-lives':>14} {'u(k) now':>10}"
+            f" {'best spacing':>13} {'to half-lives':>14} {'u(k) best':>10} {'gain':>6}"
+        )
+        for s in plan.schedule:
+            lines.append(
+                f"  {s.run:<10} {s.readings:>3} {s.current_spacing_s:>10.0f} s"
+                f" {s.current_half_lives:>14.1f} {s.u_current:>10.2g}"
+                f" {s.optimal_spacing_s:>11.0f} s {s.optimal_half_lives:>14.1f}"
+                f" {s.u_optimal:>10.2g} {s.gain_percent:>5.0f}%"
+            )
+    return "\n".join(lines)
+
+
+def _plan(args: argparse.Namespace, argv: list[str]) -> int:
+    from .analysis import DEFAULT_SEED, Settings, analyze
+    from .results import write_results
+
+    settings = Settings(
+        coverage=args.coverage,
+        seed=DEFAULT_SEED if args.seed is None else args.seed,
+        montecarlo=False,
+    )
+    res = analyze(args.experiment, settings=settings)
+    if res.plan is None:
+        raise InputError(f"{args.experiment}: there is nothing to plan (no analysed chain).")
+    print(_plan_table(res))
+    if args.out is not None:
+        write_results(res, args.out, command_line=["uqreport", *argv])
+        print(f"results written to {args.out}")
+    return EXIT_OK
 
 
 def _analyze(exp_path: Path, out: Path, args: argparse.Namespace, argv: list[str]) -> int:
@@ -202,6 +274,8 @@ def main(argv: Sequence[str] | None = None) -> int:
             return _analyze(args.experiment, args.out, args, args_list)
         if args.command == "demo":
             return _demo(args, args_list)
+        if args.command == "plan":
+            return _plan(args, args_list)
     except ExperimentError as exc:
         print(f"uqreport: {exc}", file=sys.stderr)
         return EXIT_INPUT

@@ -201,6 +201,7 @@ def results_dict(res: StudyResult, *, command_line: list[str] | None = None) -> 
             }
             for c, ch in res.chains.items()
         },
+        "plan": None if res.plan is None else res.plan.as_dict(),
         "warnings": [f.as_dict() for f in res.all_findings],
         "provenance": {
             "versions": _versions(),

@@ -23,6 +23,7 @@ from typing import Any
 from ..errors import ExperimentError, InputError, Problem
 from ..inputs import InputQuantity, InputSet
 from . import chains as _chains  # noqa: F401  (registers the measurement sections)
+from . import plan as _plan  # noqa: F401  (registers the planner section)
 from .chains import BatchSection, Pump, TankSection, TracerSection
 from .quantities import QuantitySpec
 from .schema import (

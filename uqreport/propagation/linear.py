@@ -21,7 +21,13 @@ from ..inputs import InputSet
 from ..model import MeasurementModel, OutputQuantity
 from .coverage import coverage_factor, welch_satterthwaite
 
-__all__ = ["LinearEstimate", "LinearResult", "numerical_jacobian", "propagate_linear"]
+__all__ = [
+    "LinearEstimate",
+    "LinearResult",
+    "numerical_jacobian",
+    "propagate_linear",
+    "relinearise",
+]
 
 
 def _steps(model: MeasurementModel, x: NDArray[np.float64]) -> NDArray[np.float64]:
@@ -355,4 +361,39 @@ def propagate_linear(
         U=kf * u,
         coverage=coverage,
         second_order=so,
+    )
+
+
+def relinearise(result: LinearResult, inputs: InputSet) -> LinearResult:
+    """The linear result with new input uncertainties and the same sensitivity coefficients.
+
+    For what-if questions ("this group's uncertainty halved"): the Jacobian is kept, the
+    output covariance, degrees of freedom, coverage factors and expanded uncertainties are
+    recomputed.  ``inputs`` must have the same names in the same order.
+    """
+    if inputs.names != result.inputs.names:
+        raise InputError("relinearise: the new input set must have the same inputs in order.")
+    J = result.jacobian
+    Ux = inputs.covariance()
+    Uy = J @ Ux @ J.T
+    Uy = 0.5 * (Uy + Uy.T)
+    u = np.sqrt(np.clip(np.diag(Uy), 0.0, None))
+    terms = _welch_satterthwaite_terms(inputs)
+    dof = np.array(
+        [_effective_dof(J[j], Ux, inputs, float(u[j]), terms) for j in range(J.shape[0])]
+    )
+    kf = np.array([coverage_factor(d, result.coverage) for d in dof])
+    return LinearResult(
+        outputs=result.outputs,
+        inputs=inputs,
+        values=result.values,
+        jacobian=J,
+        input_covariance=Ux,
+        covariance=Uy,
+        u=u,
+        dof=dof,
+        k=kf,
+        U=kf * u,
+        coverage=result.coverage,
+        second_order=None,
     )

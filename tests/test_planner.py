@@ -1,0 +1,135 @@
+"""The improvement planner: its predictions against simulation, its verdict, its schedule
+advice against an independent Fisher-information computation, and budget closure."""
+
+from __future__ import annotations
+
+import json
+
+import numpy as np
+import pytest
+from batch_helpers import demo_study
+from scipy.optimize import curve_fit
+
+from uqreport import cli
+from uqreport.analysis import Settings, analyze
+from uqreport.models.decay import decay_curve, fit_decay
+from uqreport.planner import plan_study
+
+
+@pytest.fixture(scope="module")
+def demo_result(tmp_path_factory):
+    path = demo_study(tmp_path_factory.mktemp("plan") / "demo", seed=7)
+    return analyze(path, settings=Settings(montecarlo=False))
+
+
+def test_more_readings_prediction_matches_simulation(demo_result):
+    """The planner's "as many readings again" prediction of u(k'_r1) agrees within 10 % with
+    simulating the run with the extra readings (noise, lag and jitter as stated) and
+    refitting every simulated data set."""
+    res = demo_result
+    plan = plan_study(res, targets=("pseudo_rate_constant/r1",), share_draws=200)
+    qp = plan.quantities["pseudo_rate_constant/r1"]
+    case = next(c for c in qp.cases if c.case == "more readings")
+    u_pred = case.U_new / qp.k
+    fit = next(f for f in res.chains["batch"].chain.fits if f.name == "r1")
+    exp = res.experiment
+    t_used = fit.times[fit.used]
+    times = np.linspace(t_used[0], t_used[-1], 2 * t_used.size)
+    c, a0, k = fit.params
+    rng = np.random.default_rng(99)
+    N = 4000
+    lag = exp.timing.lag.value + rng.normal(0, exp.timing.lag.u, (N, 1))
+    jit = rng.normal(0, exp.timing.jitter.u, (N, times.size))
+    A = decay_curve(times[None, :] + lag + jit, c, a0, k)
+    A = A + rng.normal(0, exp.spectrophotometer.noise_sd.value, A.shape)
+    # the analysis's weights: noise plus jitter as effective variance
+    slope = -k * (a0 - c) * np.exp(-k * (times + exp.timing.lag.value))
+    w = 1.0 / (exp.spectrophotometer.noise_sd.value**2 + (slope * exp.timing.jitter.u) ** 2)
+    sims = fit_decay(times + exp.timing.lag.value, A, weights=w, start=[c, a0, k])
+    sd = float(np.std(sims.rate, ddof=1))
+    assert u_pred == pytest.approx(sd, rel=0.10)
+
+
+def test_verdict_names_the_largest_group_and_the_numbers(demo_result):
+    plan = demo_result.plan
+    qp = plan.quantities["second_order_rate_constant"]
+    b = demo_result.chains["batch"].budgets["second_order_rate_constant"]
+    top = b.top(1)[0]
+    assert f"is {top.group} ({100 * top.share:.0f} %)" in qp.verdict
+    best = qp.cases[0]
+    assert qp.cases == tuple(sorted(qp.cases, key=lambda c: -c.reduction))
+    assert f"{best.U_new:.2g}" in qp.verdict and f"{qp.U:.2g}" in qp.verdict
+    assert best.U_new < qp.U
+
+
+def test_halving_one_input_matches_closed_form(demo_result):
+    """Halving the temperature uncertainty: the re-weighted budget gives
+    U_new^2 / k^2 = u^2 - (3/4) u_T^2 (GUM 5.1.2 with one term quartered)."""
+    ch = demo_result.chains["batch"]
+    name = "second_order_rate_constant"
+    qp = demo_result.plan.quantities[name]
+    case = next(c for c in qp.cases if c.group == "temperature" and c.case == "halved")
+    b = ch.budgets[name]
+    share_T = b.share_of_group("temperature")
+    u = ch.linear.estimate(name).u
+    expected = np.sqrt(u**2 * (1 - 0.75 * share_T))
+    assert case.U_new / qp.k == pytest.approx(expected, rel=1e-9)
+
+
+def test_schedule_u_matches_curve_fit_covariance(demo_result):
+    """The schedule advice's u(k') for the user's times equals the known-sigma covariance of
+    scipy.optimize.curve_fit (general-purpose reference) on the fitted curve with the same
+    effective-variance weights; the advised spacing is a local minimum."""
+    res = demo_result
+    exp = res.experiment
+    advice = {s.run: s for s in res.plan.schedule}
+    for fit in res.chains["batch"].chain.fits:
+        s = advice[fit.name]
+        t = fit.times[fit.used] + fit.time_origin
+        c, a0, k = fit.params
+        slope = -k * (a0 - c) * np.exp(-k * t)
+        sig = np.sqrt(exp.spectrophotometer.noise_sd.value**2 + (slope * exp.timing.jitter.u) ** 2)
+        y = decay_curve(t, c, a0, k)
+        _, pcov = curve_fit(
+            lambda tt, c_, a_, k_: decay_curve(tt, c_, a_, k_),
+            t,
+            y,
+            p0=[c, a0, k],
+            sigma=sig,
+            absolute_sigma=True,
+        )
+        assert s.u_current == pytest.approx(np.sqrt(pcov[2, 2]), rel=1e-3)
+        assert s.u_optimal <= s.u_current
+        assert 0.0 <= s.gain_percent < 100.0
+
+
+def test_every_budget_closes(demo_result):
+    """Every budget's shares plus cross terms add to 1 within 0.01 (by input and by group)."""
+    ch = demo_result.chains["batch"]
+    for name, b in ch.budgets.items():
+        assert sum(e.share for e in b.entries) == pytest.approx(1.0, abs=0.01), name
+        assert sum(e.share for e in b.by_group) == pytest.approx(1.0, abs=0.01), name
+
+
+def test_plan_in_results_and_cli(tmp_path, capsys):
+    path = demo_study(tmp_path / "demo", seed=7)
+    assert cli.main(["plan", str(path), "--out", str(tmp_path / "out")]) == 0
+    out = capsys.readouterr().out
+    assert "Improvement plan" in out and "Sampling schedule" in out
+    assert "The largest contributor to u(second_order_rate_constant)" in out
+    doc = json.loads((tmp_path / "out" / "results.json").read_text())
+    plan = doc["plan"]
+    assert set(plan["quantities"]) == set(doc["chains"]["batch"]["headline"])
+    rec = plan["quantities"]["second_order_rate_constant"]
+    assert {"U", "k", "verdict", "cases", "unit"} <= set(rec)
+    assert {
+        "group",
+        "case",
+        "description",
+        "U_new",
+        "reduction",
+        "reduction_percent",
+        "method",
+    } <= set(rec["cases"][0])
+    assert plan["schedule"] and "gain_percent" in plan["schedule"][0]
+    assert "only_share" in plan["shares_check"]["second_order_rate_constant"][0]
