@@ -72,7 +72,11 @@ def coverage_study(
             res = analyze(
                 folder / "experiment.toml",
                 settings=Settings(
-                    coverage=coverage, seed=seed + 100_000, draws=draws, montecarlo=montecarlo
+                    coverage=coverage,
+                    seed=seed + 100_000,
+                    draws=draws,
+                    montecarlo=montecarlo,
+                    plan=False,
                 ),
             )
             ch = res.chains["batch"]
