@@ -10,6 +10,7 @@ standard Helvetica/Courier and replace the glyphs they lack (:meth:`FontSet.safe
 from __future__ import annotations
 
 import os
+import re
 from dataclasses import dataclass
 from functools import lru_cache
 from pathlib import Path
@@ -29,17 +30,10 @@ _DEJAVU = {
 }
 
 # glyphs the standard (WinAnsi) fonts lack, with plain replacements
+_SUPERSCRIPTS = re.compile("[⁻⁺⁰¹²³⁴⁵⁶⁷⁸⁹ᵇ]+")
+_FROM_SUPER = str.maketrans("⁻⁺⁰¹²³⁴⁵⁶⁷⁸⁹ᵇ", "-+0123456789b")
+
 _FALLBACK = {
-    "⁻": "^-",
-    "⁺": "^+",
-    "⁰": "0",
-    "⁴": "4",
-    "⁵": "5",
-    "⁶": "6",
-    "⁷": "7",
-    "⁸": "8",
-    "⁹": "9",
-    "ᵇ": "^b",
     "ν": "nu",
     "δ": "delta",
     "σ": "sigma",
@@ -73,6 +67,7 @@ class FontSet:
         """``text`` with the glyphs the fonts lack replaced (a no-op with DejaVu)."""
         if self.unicode:
             return text
+        text = _SUPERSCRIPTS.sub(lambda m: "^" + m.group(0).translate(_FROM_SUPER), text)
         out = []
         for ch in text:
             try:
