@@ -1,0 +1,221 @@
+"""The ensemble sampler and its diagnostics against closed-form posteriors and known
+autocorrelation times."""
+
+from __future__ import annotations
+
+import math
+import warnings
+
+import emcee
+import numpy as np
+import pytest
+
+from uqreport.bayes.diagnostics import (
+    check_acceptance,
+    equal_tailed,
+    hdi,
+    integrated_time,
+    split_rhat,
+)
+from uqreport.bayes.sampler import default_walkers, run_ensembles, seed_sampler
+from uqreport.errors import ConvergenceWarning, InputError, ModelError
+
+
+def _mc_check(draws, ess, mean, sd, *, z=4.0):
+    """Posterior mean and sd within ``z`` Monte Carlo standard errors derived from the ESS:
+    se(mean) = sd / sqrt(ESS), se(sd) = sd / sqrt(2 ESS) (standard results for a nearly
+    normal posterior, from memory)."""
+    m = draws.mean(axis=0)
+    s = draws.std(axis=0, ddof=1)
+    se_m = sd / np.sqrt(ess)
+    se_s = sd / np.sqrt(2.0 * ess)
+    assert np.all(np.abs(m - mean) < z * se_m), (m, mean, se_m)
+    assert np.all(np.abs(s - sd) < z * se_s), (s, sd, se_s)
+
+
+def test_conjugate_normal_mean_known_sigma():
+    """Normal data with known sigma and a normal prior on the mean: the posterior is normal
+    with precision 1/tau0^2 + n/sigma^2 and mean (mu0/tau0^2 + sum x/sigma^2)/precision
+    (Gelman et al., Bayesian Data Analysis, 3rd ed., section 2.5, conjugate normal model,
+    from memory)."""
+    rng = np.random.default_rng(11)
+    sigma, mu0, tau0 = 2.0, 1.0, 3.0
+    x = rng.normal(4.0, sigma, 12)
+    prec = 1.0 / tau0**2 + x.size / sigma**2
+    mean = (mu0 / tau0**2 + x.sum() / sigma**2) / prec
+    sd = 1.0 / math.sqrt(prec)
+
+    def logp(theta):
+        mu = theta[:, 0]
+        return (
+            -0.5 * ((mu - mu0) / tau0) ** 2
+            - 0.5 * np.sum((x[None, :] - mu[:, None]) ** 2, 1) / sigma**2
+        )
+
+    run = run_ensembles(logp, np.array([x.mean()]), np.array([sd]), rng=3)
+    assert run.converged
+    assert run.steps > 50 * run.tau.max()
+    draws = run.kept().reshape(-1, 1)
+    _mc_check(draws, run.ess(), np.array([mean]), np.array([sd]))
+    # equal-tailed 95 % interval of the normal posterior: mean -/+ 1.959964 sd (scipy-free
+    # constant, standard normal quantile, from memory); within 5 MC errors of the quantile
+    lo, hi = equal_tailed(draws[:, 0], 0.95)
+    tol = 5.0 * sd * math.sqrt(0.025 * 0.975 / run.ess()[0]) / 0.0584  # phi(1.96) = 0.0584
+    assert abs(lo - (mean - 1.959964 * sd)) < tol
+    assert abs(hi - (mean + 1.959964 * sd)) < tol
+
+
+def test_linear_regression_gaussian_prior():
+    """Straight-line-plus-curvature regression with known sigma and a Gaussian prior on the
+    coefficients: posterior covariance V = (V0^-1 + X'X/sigma^2)^-1, mean
+    V (V0^-1 m0 + X'y/sigma^2) (Bishop, Pattern Recognition and Machine Learning, eqs.
+    3.50-3.51; Gelman et al., BDA3 section 14.8; from memory)."""
+    rng = np.random.default_rng(5)
+    t = np.linspace(0.0, 1.0, 15)
+    X = np.column_stack([np.ones_like(t), t, t * t])
+    sigma = 0.3
+    y = X @ np.array([0.5, -1.0, 2.0]) + rng.normal(0.0, sigma, t.size)
+    m0 = np.array([0.0, 0.0, 0.0])
+    V0 = np.diag([4.0, 4.0, 1.0])
+    V0i = np.linalg.inv(V0)
+    V = np.linalg.inv(V0i + X.T @ X / sigma**2)
+    mean = V @ (V0i @ m0 + X.T @ y / sigma**2)
+    sd = np.sqrt(np.diag(V))
+
+    def logp(b):
+        r = y[None, :] - b @ X.T
+        d = b - m0
+        return -0.5 * np.sum(r * r, 1) / sigma**2 - 0.5 * np.einsum("wi,ij,wj->w", d, V0i, d)
+
+    run = run_ensembles(logp, mean + 0.1 * sd, sd, rng=8, moves="de-mix")
+    assert run.converged
+    draws = run.kept().reshape(-1, 3)
+    _mc_check(draws, run.ess(), mean, sd)
+    corr = np.corrcoef(draws.T)
+    exact = V / np.outer(sd, sd)
+    # correlation within 5 MC errors, (1 - r^2)/sqrt(ESS) (standard result, from memory)
+    tol = 5.0 * (1.0 - exact**2) / np.sqrt(run.ess().min()) + 1e-12
+    assert np.all(np.abs(corr - exact) <= tol)
+
+
+def _ar1(phi, n, walkers, rng):
+    e = rng.standard_normal((n, walkers))
+    x = np.empty_like(e)
+    x[0] = e[0] / math.sqrt(1.0 - phi * phi)
+    for i in range(1, n):  # the recursion itself (a test fixture, not library code)
+        x[i] = phi * x[i - 1] + e[i]
+    return x
+
+
+@pytest.mark.parametrize("phi", [0.5, 0.9])
+def test_integrated_time_ar1(phi):
+    """AR(1) process x_t = phi x_(t-1) + e_t: integrated autocorrelation time
+    tau = (1 + phi)/(1 - phi) (standard result, from memory); the estimate within 20 %, and
+    identical to emcee's emcee.autocorr.integrated_time (same estimator)."""
+    x = _ar1(phi, 40_000, 4, np.random.default_rng(21))
+    tau = integrated_time(x)[0]
+    assert tau == pytest.approx((1 + phi) / (1 - phi), rel=0.20)
+    ref = emcee.autocorr.integrated_time(x[:, :, None], tol=0)[0]
+    assert tau == pytest.approx(ref, rel=1e-9)
+
+
+def test_split_rhat_detects_separated_ensembles():
+    """R-hat near 1 for ensembles of one distribution and well above for shifted ones
+    (Gelman et al., BDA3 section 11.4: R-hat -> 1 as the sequences mix, from memory)."""
+    rng = np.random.default_rng(4)
+    same = rng.standard_normal((4, 500, 8, 1))
+    assert split_rhat(same)[0] == pytest.approx(1.0, abs=0.01)
+    shifted = same + np.arange(4)[:, None, None, None]
+    assert split_rhat(shifted)[0] > 1.5
+    with pytest.raises(InputError, match=r"ensembles >= 2"):
+        split_rhat(same[:1])
+
+
+def test_hdi_of_exponential_draws():
+    """The 95 % highest-density interval of an exponential(1) posterior is [0, -ln 0.05]
+    (closed form: the density decreases, so the HDI starts at 0; from memory)."""
+    y = np.random.default_rng(2).exponential(1.0, 200_000)
+    lo, hi = hdi(y, 0.95)
+    assert lo == pytest.approx(0.0, abs=1e-3)
+    assert hi == pytest.approx(-math.log(0.05), rel=0.02)
+
+
+def test_same_seed_same_draws_and_generator_equivalent():
+    """Reproducibility: an int seed and the Generator it names give identical chains; a
+    different seed gives different ones (common practice)."""
+
+    def logp(th):
+        return -0.5 * np.sum(th * th, axis=1)
+
+    kw = dict(max_steps=400, check_interval=200, ball=0.5)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        a = run_ensembles(logp, np.zeros(2), np.ones(2), rng=17, **kw)
+        b = run_ensembles(logp, np.zeros(2), np.ones(2), rng=np.random.default_rng(17), **kw)
+        c = run_ensembles(logp, np.zeros(2), np.ones(2), rng=18, **kw)
+    np.testing.assert_array_equal(a.chain, b.chain)
+    assert a.seeds == b.seeds
+    assert not np.array_equal(a.chain, c.chain)
+
+
+def test_seed_sampler_checks_that_the_state_took():
+    """emcee's random_state setter fails silently; seed_sampler reads the state back."""
+    s = emcee.EnsembleSampler(4, 1, lambda x: -0.5 * np.sum(x * x, 1), vectorize=True)
+    seed = seed_sampler(s, np.random.default_rng(3))
+    assert np.array_equal(s.random_state[1], np.random.RandomState(seed).get_state()[1])
+
+    class Deaf:
+        """A sampler whose random state ignores assignments (as emcee does on bad input)."""
+
+        @property
+        def random_state(self):
+            return np.random.RandomState(0).get_state()
+
+        @random_state.setter
+        def random_state(self, state):
+            pass
+
+    with pytest.raises(ModelError, match="did not accept the seeded random state"):
+        seed_sampler(Deaf(), np.random.default_rng(4))  # type: ignore[arg-type]
+
+
+def test_step_cap_warns_and_marks_unconverged():
+    """Never a silent unconverged answer: at max_steps a ConvergenceWarning and
+    converged = False."""
+
+    def logp(th):
+        return -0.5 * np.sum(th * th, axis=1)
+
+    with pytest.warns(ConvergenceWarning, match="did not converge within max_steps = 200"):
+        run = run_ensembles(logp, np.zeros(3), np.ones(3), rng=1, max_steps=200)
+    assert not run.converged
+    assert run.steps == 200
+
+
+def test_bad_start_and_bad_walkers():
+    def logp(th):
+        return np.where(th[:, 0] > 0, -0.5 * th[:, 0] ** 2, -np.inf)
+
+    with pytest.raises(
+        InputError, match=r"not finite at the start: parameter 'a' = -1 lies outside"
+    ):
+        run_ensembles(
+            logp,
+            np.array([-1.0]),
+            np.array([1.0]),
+            rng=1,
+            diagnose=lambda x: f"parameter 'a' = {x[0]:g} lies outside (0, inf)",
+        )
+    with pytest.raises(InputError, match=r"walkers = 3 is below 2 ndim = 4"):
+        run_ensembles(lambda t: -np.sum(t * t, 1), np.zeros(2), np.ones(2), walkers=3)
+    with pytest.raises(InputError, match=r"scale: every entry must be finite and > 0"):
+        run_ensembles(lambda t: -np.sum(t * t, 1), np.zeros(2), np.array([1.0, 0.0]))
+    assert default_walkers(1) == 8 and default_walkers(5) == 20
+
+
+def test_acceptance_warning():
+    """Acceptance outside 0.2-0.5 warns (common practice for the stretch move)."""
+    with pytest.warns(ConvergenceWarning, match=r"acceptance fraction 0\.70 lies outside"):
+        ok, _ = check_acceptance(np.full((1, 8), 0.7))
+    assert not ok
+    assert check_acceptance(np.full((2, 8), 0.3))[0]
