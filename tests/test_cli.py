@@ -49,7 +49,9 @@ def test_analyze_writes_results_and_keeps_inputs(tmp_path, capsys):
     for p in (DATA / "good").iterdir():
         (src / p.name).write_bytes(p.read_bytes())
     before = _hashes(src)
-    code = cli.main(["analyze", str(src), "--out", str(src), "--draws", "2000", "--seed", "3"])
+    code = cli.main(
+        ["analyze", str(src), "--out", str(src), "--draws", "2000", "--seed", "3", "--no-report"]
+    )
     assert code == 0
     out = capsys.readouterr().out
     assert "second_order_rate_constant" in out
@@ -66,6 +68,7 @@ def test_analyze_writes_results_and_keeps_inputs(tmp_path, capsys):
 def test_demo_writes_study_truth_and_results(tmp_path):
     out = tmp_path / "demo"
     assert cli.main(["demo", "--out", str(out), "--seed", "7", "--draws", "2000", "--quiet"]) == 0
+    assert (out / "report.pdf").read_bytes()[:5] == b"%PDF-"
     names = {p.name for p in out.iterdir()}
     assert {
         "experiment.toml",
@@ -82,7 +85,12 @@ def test_demo_writes_study_truth_and_results(tmp_path):
     assert set(doc["quantities"]) <= set(truth["quantities"])
     assert doc["study"]["invented"] is True
     # a second demo into the same folder is allowed (it holds a demo)
-    assert cli.main(["demo", "--out", str(out), "--seed", "8", "--draws", "2000", "--quiet"]) == 0
+    assert (
+        cli.main(
+            ["demo", "--out", str(out), "--seed", "8", "--draws", "2000", "--quiet", "--no-report"]
+        )
+        == 0
+    )
 
 
 def test_demo_refuses_a_folder_with_other_files(tmp_path, capsys):

@@ -74,6 +74,7 @@ def _parser() -> argparse.ArgumentParser:
             "--coverage", type=_coverage, default=0.95, help="coverage probability (default 0.95)"
         )
         sp.add_argument("--no-montecarlo", action="store_true", help="linear propagation only")
+        sp.add_argument("--no-report", action="store_true", help="do not write report.pdf")
         sp.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
     d = sub.add_parser(
@@ -130,7 +131,8 @@ def _settings(args: argparse.Namespace):
     )
 
 
-def _summary(res, out: Path) -> str:
+def _summary(res, out: Path, *, report: bool = True) -> str:
+    report = ", report.pdf" if report else ""
     lines = []
     st = res.experiment.study
     lines.append(f"{st.title} - {st.operator}, {st.date.isoformat()}")
@@ -159,7 +161,7 @@ def _summary(res, out: Path) -> str:
         for f in res.all_findings:
             if f.level == "warning":
                 lines.append(f"    - {'[' + f.run + '] ' if f.run else ''}{f.message}")
-    lines.append(f"  results written to {out}")
+    lines.append(f"  written to {out}: results.json, budget.csv, fits.csv{report}")
     return "\n".join(lines)
 
 
@@ -223,12 +225,17 @@ def _plan(args: argparse.Namespace, argv: list[str]) -> int:
 
 def _analyze(exp_path: Path, out: Path, args: argparse.Namespace, argv: list[str]) -> int:
     from .analysis import analyze
-    from .results import write_results
+    from .results import results_dict, write_results
 
     res = analyze(exp_path, settings=_settings(args))
-    write_results(res, out, command_line=["uqreport", *argv])
+    doc = results_dict(res, command_line=["uqreport", *argv])
+    write_results(res, out, doc=doc)
+    if not args.no_report:
+        from .report import build_report
+
+        build_report(res, doc, out / "report.pdf")
     if not args.quiet:
-        print(_summary(res, out))
+        print(_summary(res, out, report=not args.no_report))
     return EXIT_OK
 
 

@@ -307,11 +307,16 @@ def _csvnum(x: float) -> str:
 
 
 def write_results(
-    res: StudyResult, out_dir: str | Path, *, command_line: list[str] | None = None
+    res: StudyResult,
+    out_dir: str | Path,
+    *,
+    command_line: list[str] | None = None,
+    doc: dict[str, Any] | None = None,
 ) -> dict[str, Path]:
     """Write results.json, budget.csv and fits.csv into ``out_dir`` (atomically).
 
-    Refuses to overwrite any input file of the study.
+    ``doc`` is the results document when the caller has built it already.  Refuses to
+    overwrite any input file of the study.
     """
     out = Path(out_dir)
     targets = {
@@ -319,8 +324,9 @@ def write_results(
         "budget": out / "budget.csv",
         "fits": out / "fits.csv",
     }
-    _refuse_inputs(res, targets.values())
-    doc = results_dict(res, command_line=command_line)
+    _refuse_inputs(res, [*targets.values(), out / "report.pdf"])
+    if doc is None:
+        doc = results_dict(res, command_line=command_line)
     atomic_write_text(targets["results"], json.dumps(doc, indent=2, allow_nan=False) + "\n")
     atomic_write_text(targets["budget"], budget_csv(res))
     atomic_write_text(targets["fits"], fits_csv(res))
