@@ -116,7 +116,7 @@ def test_plan_in_results_and_cli(tmp_path, capsys):
     assert cli.main(["plan", str(path), "--out", str(tmp_path / "out")]) == 0
     out = capsys.readouterr().out
     assert "Improvement plan" in out and "Sampling schedule" in out
-    assert "The largest contributor to u(second_order_rate_constant)" in out
+    assert "The largest contributor to u(k) is temperature" in out
     doc = json.loads((tmp_path / "out" / "results.json").read_text())
     plan = doc["plan"]
     assert set(plan["quantities"]) == set(doc["chains"]["batch"]["headline"])

@@ -27,11 +27,17 @@ JacobianFunction = Callable[[NDArray[np.float64]], NDArray[np.float64]]
 
 @dataclass(frozen=True)
 class OutputQuantity:
-    """An output (measurand) Y_j of a model: stable name, unit and a plain description."""
+    """An output (measurand) Y_j of a model: stable name, unit, a plain description and a
+    short symbol for prose ("k", "b", "k'(r1)"; the name when not given)."""
 
     name: str
     unit: str = "1"
     description: str = ""
+    symbol: str = ""
+
+    @property
+    def label(self) -> str:
+        return self.symbol or self.name
 
 
 @dataclass(frozen=True)

@@ -310,12 +310,13 @@ def _fmt(x: float) -> str:
 def _verdict(name: str, unit: str, ch: ChainResult, U: float, cases: list[PlanCase]) -> str:
     b = ch.budgets[name]
     top = next((e for e in b.by_group if not e.is_cross_term), None)
+    label = ch.linear.outputs[ch.linear.index(name)].label
     if top is None or not cases:
-        return f"No improvement was found for {name}."
+        return f"No improvement was found for {label}."
     own = [c for c in cases if c.group == top.group]
     best_own = max(own, key=lambda c: c.reduction) if own else None
     unit_s = "" if unit == "1" else f" {unit}"
-    text = f"The largest contributor to u({name}) is {top.group} ({100 * top.share:.0f} %)"
+    text = f"The largest contributor to u({label}) is {top.group} ({100 * top.share:.0f} %)"
     if best_own is not None and best_own.reduction > 0:
         text += (
             f"; {best_own.description} reduces U from {_fmt(U)} to"

@@ -92,6 +92,7 @@ def _quantities(res: StudyResult) -> dict[str, Any]:
         for j, o in enumerate(ch.linear.outputs):
             rec: dict[str, Any] = {
                 "unit": o.unit,
+                "symbol": o.label,
                 "description": o.description,
                 "chain": cname,
                 "headline": o.name in ch.headline,

@@ -228,6 +228,7 @@ class BatchStudyModel:
                     f"pseudo_rate_constant/{r.name}",
                     "1/s",
                     f"pseudo-first-order rate constant k' of run {r.name}",
+                    f"k'({r.name})",
                 )
             )
         for r in self.runs:
@@ -236,6 +237,7 @@ class BatchStudyModel:
                     f"hydroxide_concentration/{r.name}",
                     "mol/L",
                     f"excess-reagent concentration in the reaction mixture of run {r.name}",
+                    f"[OH]({r.name})",
                 )
             )
         for r in self.runs:
@@ -244,6 +246,7 @@ class BatchStudyModel:
                     f"second_order_rate_constant/{r.name}",
                     "L/(mol*s)",
                     f"k = k'/[OH] of run {r.name} (order 1 in the excess reagent)",
+                    f"k({r.name})",
                 )
             )
         if self.mean_weights is not None:
@@ -253,6 +256,7 @@ class BatchStudyModel:
                     "L/(mol*s)",
                     "second-order rate constant k (order in the excess reagent fixed at 1),"
                     " weighted mean over runs, at the stated temperature",
+                    "k",
                 )
             )
         if self.order_weights is not None:
@@ -261,6 +265,7 @@ class BatchStudyModel:
                     "hydroxide_order",
                     "1",
                     "order b in the excess reagent, from ln k' against ln [OH]",
+                    "b",
                 )
             )
             out.append(
@@ -268,6 +273,7 @@ class BatchStudyModel:
                     "rate_constant_free_order",
                     "(L/mol)^b/s",
                     "rate constant k_b with the order b fitted (k' = k_b [OH]^b)",
+                    "k_b",
                 )
             )
         if self.mean_weights is not None and self.reference_temperature is not None:
@@ -276,6 +282,7 @@ class BatchStudyModel:
                     "second_order_rate_constant_at_reference",
                     "L/(mol*s)",
                     "second-order rate constant corrected to the reference temperature (Arrhenius)",
+                    "k_ref",
                 )
             )
         return tuple(out)
