@@ -760,21 +760,22 @@ class _Builder:
             )
             return None
         c_oh = concentration_column(self.reg, exp, run.hydroxide_solution)
-        v_oh = volume_column(
-            self.reg, exp, run.hydroxide_volume, f"batch.runs[{run.name}].hydroxide_volume"
-        )
-        parts = [v_oh]
-        if run.dye_volume is not None:
-            parts.append(
-                volume_column(self.reg, exp, run.dye_volume, f"batch.runs[{run.name}].dye_volume")
-            )
-        if run.water_volume is not None:
-            parts.append(
-                volume_column(
-                    self.reg, exp, run.water_volume, f"batch.runs[{run.name}].water_volume"
-                )
-            )
-        return lambda X: c_oh(X) * v_oh(X) / sum(p(X) for p in parts)
+        v_oh, total = self._mixture(run)
+        return lambda X: c_oh(X) * v_oh(X) / total(X)
+
+    def _mixture(self, run) -> tuple[Column, Column]:
+        """The hydroxide volume and the total volume of a run's reaction mixture.
+
+        Each volume is one set of inputs however often it is asked for (the registry shares
+        inputs by name), so the hydroxide and dye concentrations see the same fills.
+        """
+        vols = {}
+        for key in ("hydroxide_volume", "dye_volume", "water_volume"):
+            spec = getattr(run, key)
+            if spec is not None:
+                vols[key] = volume_column(self.reg, self.exp, spec, f"batch.runs[{run.name}].{key}")
+        parts = list(vols.values())
+        return vols.get("hydroxide_volume"), lambda X: sum(p(X) for p in parts)
 
     def dye_initial(self, run) -> Column | None:
         exp = self.exp
@@ -790,20 +791,8 @@ class _Builder:
             return None
         c_d = concentration_column(self.reg, exp, run.dye_solution)
         v_d = volume_column(self.reg, exp, run.dye_volume, f"batch.runs[{run.name}].dye_volume")
-        parts = [v_d]
-        if run.hydroxide_volume is not None:
-            parts.append(
-                volume_column(
-                    self.reg, exp, run.hydroxide_volume, f"batch.runs[{run.name}].hydroxide_volume"
-                )
-            )
-        if run.water_volume is not None:
-            parts.append(
-                volume_column(
-                    self.reg, exp, run.water_volume, f"batch.runs[{run.name}].water_volume"
-                )
-            )
-        return lambda X: c_d(X) * v_d(X) / sum(p(X) for p in parts)
+        _, total = self._mixture(run)
+        return lambda X: c_d(X) * v_d(X) / total(X)
 
 
 def _independent_variances(lin, rows: slice, n_runs: int) -> NDArray[np.float64]:

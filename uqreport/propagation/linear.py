@@ -295,6 +295,43 @@ def _effective_dof(
     return welch_satterthwaite(u_c, contribs, dofs)
 
 
+def _assemble(
+    outputs: tuple[OutputQuantity, ...],
+    inputs: InputSet,
+    values: NDArray[np.float64],
+    J: NDArray[np.float64],
+    coverage: float,
+    extra_variance: NDArray[np.float64] | None = None,
+) -> LinearResult:
+    """U_y = J U_x J^T (plus extra variance on the diagonal), u, Welch-Satterthwaite dof,
+    coverage factors and expanded uncertainties."""
+    Ux = inputs.covariance()
+    Uy = J @ Ux @ J.T
+    Uy = 0.5 * (Uy + Uy.T)
+    if extra_variance is not None:
+        Uy = Uy + np.diag(np.maximum(extra_variance, 0.0))
+    u = np.sqrt(np.clip(np.diag(Uy), 0.0, None))
+    terms = _welch_satterthwaite_terms(inputs)
+    dof = np.array(
+        [_effective_dof(J[j], Ux, inputs, float(u[j]), terms) for j in range(J.shape[0])]
+    )
+    kf = np.array([coverage_factor(d, coverage) for d in dof])
+    return LinearResult(
+        outputs=outputs,
+        inputs=inputs,
+        values=values,
+        jacobian=J,
+        input_covariance=Ux,
+        covariance=Uy,
+        u=u,
+        dof=dof,
+        k=kf,
+        U=kf * u,
+        coverage=coverage,
+        second_order=extra_variance,
+    )
+
+
 def propagate_linear(
     model: MeasurementModel,
     *,
@@ -328,9 +365,6 @@ def propagate_linear(
             )
     else:
         J = numerical_jacobian(model, x0)
-    Ux = model.inputs.covariance()
-    Uy = J @ Ux @ J.T
-    Uy = 0.5 * (Uy + Uy.T)
     so = None
     if second_order:
         if model.inputs.is_correlated:
@@ -339,29 +373,7 @@ def propagate_linear(
                 " uncorrelated inputs only. Fix: drop second_order, or use Monte Carlo."
             )
         so = _second_order_variance(model, x0, J)
-        Uy = Uy + np.diag(np.maximum(so, 0.0))
-    u = np.sqrt(np.clip(np.diag(Uy), 0.0, None))
-    m = model.n_outputs
-    dof = np.empty(m)
-    kf = np.empty(m)
-    terms = _welch_satterthwaite_terms(model.inputs)
-    for j in range(m):
-        dof[j] = _effective_dof(J[j], Ux, model.inputs, float(u[j]), terms)
-        kf[j] = coverage_factor(dof[j], coverage)
-    return LinearResult(
-        outputs=model.outputs,
-        inputs=model.inputs,
-        values=y0,
-        jacobian=J,
-        input_covariance=Ux,
-        covariance=Uy,
-        u=u,
-        dof=dof,
-        k=kf,
-        U=kf * u,
-        coverage=coverage,
-        second_order=so,
-    )
+    return _assemble(model.outputs, model.inputs, y0, J, coverage, so)
 
 
 def relinearise(result: LinearResult, inputs: InputSet) -> LinearResult:
@@ -373,27 +385,4 @@ def relinearise(result: LinearResult, inputs: InputSet) -> LinearResult:
     """
     if inputs.names != result.inputs.names:
         raise InputError("relinearise: the new input set must have the same inputs in order.")
-    J = result.jacobian
-    Ux = inputs.covariance()
-    Uy = J @ Ux @ J.T
-    Uy = 0.5 * (Uy + Uy.T)
-    u = np.sqrt(np.clip(np.diag(Uy), 0.0, None))
-    terms = _welch_satterthwaite_terms(inputs)
-    dof = np.array(
-        [_effective_dof(J[j], Ux, inputs, float(u[j]), terms) for j in range(J.shape[0])]
-    )
-    kf = np.array([coverage_factor(d, result.coverage) for d in dof])
-    return LinearResult(
-        outputs=result.outputs,
-        inputs=inputs,
-        values=result.values,
-        jacobian=J,
-        input_covariance=Ux,
-        covariance=Uy,
-        u=u,
-        dof=dof,
-        k=kf,
-        U=kf * u,
-        coverage=result.coverage,
-        second_order=None,
-    )
+    return _assemble(result.outputs, inputs, result.values, result.jacobian, result.coverage)
