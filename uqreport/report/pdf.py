@@ -18,6 +18,7 @@ from typing import Any
 from reportlab.lib import colors
 from reportlab.lib.enums import TA_LEFT, TA_RIGHT
 from reportlab.lib.styles import ParagraphStyle
+from reportlab.pdfbase.pdfmetrics import stringWidth
 from reportlab.platypus import (
     Flowable,
     Image,
@@ -86,6 +87,7 @@ class Styles:
     h2: ParagraphStyle
     h3: ParagraphStyle
     caption: ParagraphStyle
+    note: ParagraphStyle
     cell: ParagraphStyle
     cell_right: ParagraphStyle
     cell_head: ParagraphStyle
@@ -140,6 +142,15 @@ def styles() -> Styles:
         h3=st("h3", fontName=f.bold, fontSize=9.2, leading=12, spaceBefore=4, keepWithNext=1),
         caption=st(
             "caption", fontName=f.italic, fontSize=7.8, leading=10, textColor=MUTED, spaceAfter=8
+        ),
+        note=st(
+            "note",
+            fontName=f.italic,
+            fontSize=7.6,
+            leading=9.6,
+            textColor=MUTED,
+            spaceAfter=3,
+            keepWithNext=1,
         ),
         cell=cell,
         cell_right=ParagraphStyle("cell_right", parent=cell, alignment=TA_RIGHT),
@@ -222,12 +233,24 @@ def banner(text: str | Markup) -> Table:
 # --- tables -------------------------------------------------------------------------------
 
 
-def _cell(v: object, style: ParagraphStyle) -> Flowable:
+_PAD_X = 3.0
+
+
+def _cell(v: object, style: ParagraphStyle, width: float) -> Flowable | str:
+    """A table cell: plain text when it fits on one line (drawn as it is, no markup, and
+    much cheaper to lay out), else an escaped paragraph that wraps."""
     if isinstance(v, Flowable):
         return v
     if v is None:
         v = "–"
-    return para(v if isinstance(v, Markup) else str(v), style)
+    if isinstance(v, Markup):
+        return para(v, style)
+    text = str(v)
+    if "\n" not in text:
+        safe = fonts().safe(text)
+        if stringWidth(safe, style.fontName, style.fontSize) <= width - 2 * _PAD_X:
+            return safe
+    return para(text, style)
 
 
 def data_table(
@@ -242,8 +265,8 @@ def data_table(
 
     ``widths`` are fractions of the frame width (scaled to add to 1); ``align`` one letter
     per column, "L" or "R" (numbers right); ``highlight`` row indices (of ``rows``) drawn
-    with a warm background (flagged entries).  Cells: ``str`` (escaped), :class:`Markup`,
-    a flowable, or None ("–").
+    with a warm background (flagged entries).  Cells: ``str`` (shown literally),
+    :class:`Markup`, a flowable, or None ("–").
     """
     s = styles()
     n = len(header)
@@ -253,24 +276,31 @@ def data_table(
     tot = float(sum(widths))
     col_w = [FRAME_WIDTH * w / tot for w in widths]
     head = [
-        _cell(h, s.cell_head_right if align[j] == "R" else s.cell_head)
+        _cell(h, s.cell_head_right if align[j] == "R" else s.cell_head, col_w[j])
         for j, h in enumerate(header)
     ]
     body = [
-        [_cell(v, s.cell_right if align[j] == "R" else s.cell) for j, v in enumerate(r)]
+        [_cell(v, s.cell_right if align[j] == "R" else s.cell, col_w[j]) for j, v in enumerate(r)]
         for r in rows
     ]
     t = Table([head, *body], colWidths=col_w, repeatRows=1, hAlign="LEFT", splitByRow=1)
+    cell = s.cell
     cmds: list[tuple] = [
+        ("FONT", (0, 0), (-1, -1), cell.fontName, cell.fontSize, cell.leading),
+        ("FONT", (0, 0), (-1, 0), s.cell_head.fontName, cell.fontSize, cell.leading),
+        ("TEXTCOLOR", (0, 0), (-1, -1), INK),
         ("BACKGROUND", (0, 0), (-1, 0), HEAD_BG),
         ("LINEBELOW", (0, 0), (-1, 0), 0.8, ACCENT),
         ("LINEBELOW", (0, -1), (-1, -1), 0.6, RULE),
         ("VALIGN", (0, 0), (-1, -1), "TOP"),
-        ("LEFTPADDING", (0, 0), (-1, -1), 3),
-        ("RIGHTPADDING", (0, 0), (-1, -1), 3),
+        ("LEFTPADDING", (0, 0), (-1, -1), _PAD_X),
+        ("RIGHTPADDING", (0, 0), (-1, -1), _PAD_X),
         ("TOPPADDING", (0, 0), (-1, -1), 1.6),
         ("BOTTOMPADDING", (0, 0), (-1, -1), 2.2),
     ]
+    for j, a in enumerate(align):
+        if a == "R":
+            cmds.append(("ALIGN", (j, 0), (j, -1), "RIGHT"))
     if len(rows) > 3:
         cmds.append(("ROWBACKGROUNDS", (0, 1), (-1, -1), [colors.white, ZEBRA]))
     for i in highlight:
@@ -280,13 +310,13 @@ def data_table(
 
 
 def titled(title: str | Markup, flowable: Flowable, note: str | Markup | None = None) -> list:
-    """A small bold title kept with the table (or figure) after it, and an optional note."""
+    """A small bold title and an optional note on how to read it, kept with the start of
+    the table after them (a note after a long table could be left alone on a page)."""
     s = styles()
-    out: list = [para(title, s.h3), flowable]
+    out: list = [para(title, s.h3)]
     if note:
-        out.append(para(note, s.caption))
-    else:
-        out.append(Spacer(1, 6))
+        out.append(para(note, s.note))
+    out += [flowable, Spacer(1, 8)]
     return out
 
 

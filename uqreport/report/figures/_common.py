@@ -13,7 +13,17 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 from typing import Any
 
-__all__ = ["DPI", "PALETTE", "FigurePNG", "mtext", "new_figure", "render", "style"]
+__all__ = [
+    "DPI",
+    "PALETTE",
+    "FigurePNG",
+    "margins",
+    "mtext",
+    "new_figure",
+    "render",
+    "style",
+    "text_width_in",
+]
 
 #: Resolution of every figure in the PDF (the brief asks for at least 150 dpi).
 DPI = 200
@@ -84,11 +94,30 @@ def style() -> Iterator[None]:
         yield
 
 
-def new_figure(width_in: float, height_in: float, **kw: Any):
-    """A bare Figure with constrained layout (call inside :func:`style`)."""
+def new_figure(width_in: float, height_in: float, *, constrained: bool = True, **kw: Any):
+    """A bare Figure (call inside :func:`style`), with constrained layout unless the caller
+    places its axes itself (cheaper: constrained layout measures every text twice)."""
     from matplotlib.figure import Figure
 
-    return Figure(figsize=(width_in, height_in), layout="constrained", **kw)
+    layout = "constrained" if constrained else None
+    return Figure(figsize=(width_in, height_in), layout=layout, **kw)
+
+
+def text_width_in(text: str, size_pt: float) -> float:
+    """Width of ``text`` in inches at ``size_pt`` in the report's face (for margins)."""
+    from matplotlib.font_manager import FontProperties
+    from matplotlib.textpath import TextToPath
+
+    w, _h, _d = TextToPath().get_text_width_height_descent(
+        text, FontProperties(family="DejaVu Sans", size=size_pt), ismath=False
+    )
+    return w / 72.0
+
+
+def margins(fig: Any, *, left: float, right: float, top: float, bottom: float) -> dict[str, float]:
+    """Subplot parameters from margins in inches."""
+    w, h = fig.get_size_inches()
+    return {"left": left / w, "right": 1 - right / w, "top": 1 - top / h, "bottom": bottom / h}
 
 
 def render(fig: Any) -> FigurePNG:

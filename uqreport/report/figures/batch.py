@@ -18,7 +18,16 @@ from typing import Any
 import numpy as np
 from numpy.typing import NDArray
 
-from ._common import EXCLUDED_STYLES, PALETTE, FigurePNG, mtext, new_figure, render, style
+from ._common import (
+    EXCLUDED_STYLES,
+    PALETTE,
+    FigurePNG,
+    margins,
+    mtext,
+    new_figure,
+    render,
+    style,
+)
 
 __all__ = ["OrderPoint", "curve_band", "fit_figure", "order_figure"]
 
@@ -64,8 +73,14 @@ def fit_figure(
     cov = rec["covariance"]
     pct = f"{100 * coverage:g} %"
     with style():
-        fig = new_figure(width_in, height_in)
-        gs = fig.add_gridspec(2, 1, height_ratios=[2.6, 1.0])
+        fig = new_figure(width_in, height_in, constrained=False)
+        gs = fig.add_gridspec(
+            2,
+            1,
+            height_ratios=[2.6, 1.0],
+            hspace=0.09,
+            **margins(fig, left=0.62, right=0.12, top=0.08, bottom=0.44),
+        )
         ax = fig.add_subplot(gs[0])
         axr = fig.add_subplot(gs[1], sharex=ax)
         t_hi = float(times.max()) if times.size else 1.0

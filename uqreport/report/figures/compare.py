@@ -7,7 +7,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from ._common import PALETTE, FigurePNG, mtext, new_figure, render, style
+from ._common import PALETTE, FigurePNG, margins, mtext, new_figure, render, style, text_width_in
 
 __all__ = ["BudgetBar", "Interval", "IntervalPanel", "budget_figure", "interval_figure"]
 
@@ -36,7 +36,7 @@ class IntervalPanel:
 def interval_figure(panels: Sequence[IntervalPanel], *, width_in: float = 6.6) -> FigurePNG:
     """One small panel per quantity: the methods' intervals as horizontal bars."""
     n_rows = [max(len(p.intervals), 1) for p in panels]
-    height = 0.55 + sum(0.30 * r + 0.62 for r in n_rows)
+    height = 0.35 + sum(0.2 * r + 0.54 for r in n_rows)
     with style():
         fig = new_figure(width_in, height)
         axes = fig.subplots(len(panels), 1, squeeze=False, height_ratios=n_rows)[:, 0]
@@ -75,7 +75,9 @@ def budget_figure(bars: Sequence[BudgetBar], *, title: str, width_in: float = 6.
     items = sorted(bars, key=lambda b: -abs(b.share))
     height = 0.75 + 0.24 * max(len(items), 1)
     with style():
-        fig = new_figure(width_in, height)
+        fig = new_figure(width_in, height, constrained=False)
+        label_w = max((text_width_in(mtext(b.label), 7.2) for b in items), default=0.5)
+        fig.subplots_adjust(**margins(fig, left=label_w + 0.18, right=0.15, top=0.27, bottom=0.42))
         ax = fig.add_subplot()
         ys = np.arange(len(items))[::-1]
         vals = np.array([100.0 * b.share for b in items])

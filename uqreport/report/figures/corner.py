@@ -30,6 +30,10 @@ def thin_draws(x: NDArray[np.float64], max_points: int = _MAX_POINTS) -> NDArray
     return x[::step]
 
 
+def _sup(e: int) -> str:
+    return str(e).translate(str.maketrans("0123456789-", "⁰¹²³⁴⁵⁶⁷⁸⁹⁻"))
+
+
 def _smooth(h: NDArray[np.float64]) -> NDArray[np.float64]:
     k = np.array([0.25, 0.5, 0.25])
     p = np.pad(h, 1, mode="edge")
@@ -60,8 +64,16 @@ def corner_figure(
 ) -> FigurePNG:
     """The corner plot of ``names`` (at most :data:`MAX_CORNER_PARAMETERS`) from ``draws``."""
     names = list(names)[:MAX_CORNER_PARAMETERS]
-    labels = labels or {}
-    data = [thin_draws(draws[n]) for n in names]
+    labels = dict(labels or {})
+    data = []
+    for n in names:
+        x = thin_draws(draws[n])
+        med = float(np.median(np.abs(x))) if x.size else 0.0
+        e = 3 * int(np.floor(np.log10(med) / 3)) if med > 0 and not 1e-1 <= med < 1e4 else 0
+        if e:  # the power of ten in the label, not as an offset beside the ticks
+            x = x / 10.0**e
+            labels[n] = f"{labels.get(n, n)} (×10{_sup(e)})"
+        data.append(x)
     d = len(names)
     with style():
         fig = new_figure(size_in, size_in)

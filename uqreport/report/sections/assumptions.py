@@ -15,7 +15,7 @@ from ..registry import ReportContext, Section, register_section
 
 __all__ = ["AssumptionRow", "build_assumptions", "build_safety", "register_assumption_checks"]
 
-#: (assumption, what was checked, the checks' names in doc["warnings"] this row reports)
+#: (assumption, what was checked (text or Markup), the checks in doc["warnings"] it reports)
 AssumptionRow = tuple[str, str, tuple[str, ...]]
 
 _CHECKS: dict[str, Callable[[ReportContext], list[AssumptionRow]]] = {}
@@ -84,15 +84,19 @@ def _batch_rows(ctx: ReportContext) -> list[AssumptionRow]:
     for _c, n in fmt.headline_quantities(ctx.doc):
         for g in ctx.quantity(n).get("budget_by_group", []):
             if g.get("group") == "temperature":
-                tshare.append(f"{fmt.quantity_label(n).symbol} {fmt.fmt_percent(g.get('share'))}")
+                sym = fmt.quantity_label(n).symbol_markup
+                tshare.append(f"{sym} {pdf.esc(fmt.fmt_percent(g.get('share')))}")
     what = "stated temperature"
     if st.get("temperature_K") is not None:
         what += f" {fmt.fmt_sig(st['temperature_K'], 5, trim=True)} K"
         if st.get("u_temperature_K") is not None:
             what += f" with u = {fmt.fmt_sig(st['u_temperature_K'], 2, trim=True)} K"
+    what_m = pdf.esc(what)
     if tshare:
-        what += "; share of u² from temperature: " + ", ".join(tshare)
-    rows.append(("Temperature constant and known during each run", what, ("temperature",)))
+        what_m += "; share of u² from temperature: " + ", ".join(tshare)
+    rows.append(
+        ("Temperature constant and known during each run", pdf.Markup(what_m), ("temperature",))
+    )
     rows.append(
         (
             "Ionic strength: its effect on k is small over the range used",

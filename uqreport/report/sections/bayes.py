@@ -78,14 +78,14 @@ def _posterior_table(ctx: ReportContext, chain: str) -> Any | None:
             "Median",
             "SD",
             f"{pc} equal tails",
-            "68.27 %",
+            "68 % equal tails",
             f"{pc} HDI",
             "ESS",
             "τ",
             "Conv.",
         ],
         rows,
-        widths=[1.0, 1.0, 0.8, 0.7, 1.35, 1.35, 1.35, 0.6, 0.5, 0.5],
+        widths=[0.9, 1.0, 0.75, 0.65, 1.35, 1.35, 1.35, 0.55, 0.5, 0.6],
         align="LLRRRRRRRL",
         highlight=flag,
     )
@@ -242,10 +242,10 @@ def build_bayes(ctx: ReportContext) -> list:
         ct = _correlation(b)
         if ct is not None:
             out += pdf.titled("Posterior correlation coefficients", ct)
-        out += _corner(ctx, chain)
         pred = _predictive(b)
         if pred:
             out += [pdf.para("Posterior predictive check", s.h3), *pred]
+        out += _corner(ctx, chain)
     return out
 
 

@@ -199,6 +199,7 @@ def _cases_table(doc: Mapping[str, Any], name: str, rec: Mapping[str, Any]) -> A
 def _shares_check(doc: Mapping[str, Any], plan: Mapping[str, Any]) -> list:
     sc = plan.get("shares_check") or {}
     out: list = []
+    first = True
     for name, entries in sc.items():
         if not entries:
             continue
@@ -231,11 +232,16 @@ def _shares_check(doc: Mapping[str, Any], plan: Mapping[str, Any]) -> list:
                 align="LRRRL",
                 highlight=flag,
             ),
-            "Only this group varied: the Monte Carlo variance with this group alone drawn, as a"
-            " share of the full variance; this group frozen: the share of the variance that goes"
-            " when this group is held at its estimate. Shaded: the linear share is not borne out"
-            " (the model is nonlinear there).",
+            (
+                "Only this group varied: the Monte Carlo variance with this group alone drawn,"
+                " as a share of the full variance; this group frozen: the share of the variance"
+                " that goes when this group is held at its estimate. Shaded: the linear share"
+                " is not borne out (the model is nonlinear there)."
+            )
+            if first
+            else None,
         )
+        first = False
     return out
 
 
@@ -308,21 +314,29 @@ def build_plan(ctx: ReportContext) -> list:
             " simulated with the extra data and re-analysed."
         )
     ]
+    first = True
     for name, rec in (plan.get("quantities") or {}).items():
         lab = label_of(ctx.doc, name)
         out.append(sub(ctx, pdf.Markup(f"{lab.symbol_markup}: {pdf.esc(lab.label)}")))
         if rec.get("verdict"):
-            out.append(pdf.para(str(rec["verdict"]), s.statement))
+            verdict = pdf.para(str(rec["verdict"]), s.statement)
+            verdict.keepWithNext = 1  # with the cases table that backs it
+            out.append(verdict)
         cases = _cases_table(ctx.doc, name, rec)
         if cases is not None:
             t, now = cases
             out += pdf.titled(
                 pdf.Markup(f"What-if cases for {lab.symbol_markup}{pdf.esc(now)}"),
                 t,
-                "Method: 're-weighted', the linear budget with the changed uncertainty;"
-                " 're-analysed', the study analysed again with the change; 'simulated', the"
-                " study written again with the extra data and analysed.",
+                (
+                    "Method: 're-weighted', the linear budget with the changed uncertainty;"
+                    " 're-analysed', the study analysed again with the change; 'simulated', the"
+                    " study written again with the extra data and analysed."
+                )
+                if first
+                else None,
             )
+            first = False
     checks = _shares_check(ctx.doc, plan)
     sched = _schedule(plan)
     if checks:

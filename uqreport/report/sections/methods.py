@@ -160,10 +160,9 @@ def build_methods(ctx: ReportContext) -> list:
     out: list = [
         pdf.para(
             f"The {cov} intervals of the headline quantities by each method, on the scale of"
-            " the summary statements. The linear interval is y ± U; the Monte Carlo method"
-            " gives the probabilistically symmetric and the shortest interval of the output"
-            " distribution; the Bayesian posterior gives equal-tailed and highest-density"
-            " credible intervals. Where the model is nearly linear they agree."
+            " the summary statements: linear y ± U; Monte Carlo probabilistically symmetric"
+            " and shortest intervals; Bayesian equal-tailed and highest-density credible"
+            " intervals when the posterior was sampled."
         )
     ]
     out += pdf.titled("Intervals of the headline quantities", _intervals_table(ctx, names))
