@@ -448,7 +448,7 @@ class InputSet:
         gen = as_generator(rng)
         n = int(n)
         p = len(self.inputs)
-        out = np.empty((n, p))
+        out = np.empty((n, p), order="F")  # column-major: each input is filled and read whole
         correlated = sorted(
             {self.index(nm) for pair, r in self.correlations.items() if r != 0.0 for nm in pair}
         )

@@ -106,6 +106,19 @@ def _as_2d(v: ArrayLike, name: str) -> NDArray[np.float64]:
     return arr
 
 
+def _shared_or_full(arr: NDArray[np.float64], N: int, n: int) -> NDArray[np.float64]:
+    if arr.shape[0] == 1:
+        return np.broadcast_to(arr, (1, n))
+    return np.broadcast_to(arr, (N, n))
+
+
+def _rows(
+    arr: NDArray[np.float64], idx: NDArray[np.bool_] | NDArray[np.intp]
+) -> NDArray[np.float64]:
+    """Rows ``idx`` of a per-data-set array; a shared (1, n) row as it is."""
+    return arr if arr.shape[0] == 1 else arr[idx]
+
+
 def _fixed(v: ArrayLike | None, N: int) -> NDArray[np.float64] | None:
     if v is None:
         return None
@@ -169,7 +182,7 @@ def _curvature(
     with np.errstate(divide="ignore", invalid="ignore"):
         s1 = -wr_col.sum(axis=1) / d  # sum w r t e
     q = int(free.sum())
-    R = np.zeros((t.shape[0], q, q))
+    R = np.zeros((r.shape[0], q, q))
     R[:, q - 1, q - 1] = s2
     j = 0
     if free[0]:
@@ -245,6 +258,8 @@ def _grid_start(
     free: NDArray[np.bool_],
 ) -> NDArray[np.float64]:
     """Starting rates from a log-spaced grid, with the linear parameters projected out."""
+    t = np.broadcast_to(t, a.shape)
+    w = np.broadcast_to(w, a.shape)
     span = np.maximum(t.max(axis=1) - np.minimum(t.min(axis=1), 0.0), 1e-12)
     grid = np.geomspace(0.01, 50.0, 80)
     best = np.full(t.shape[0], np.inf)
@@ -304,7 +319,7 @@ def _levenberg_marquardt(
     and its normal equations are the next step's; if not, the damping grows and the stored
     normal equations of the current point are solved again (no new evaluation).
     """
-    N = t.shape[0]
+    N = a.shape[0]
     q = int(free.sum())
     theta = theta.copy()
     f, cols = _design(t, theta, free)
@@ -341,14 +356,14 @@ def _levenberg_marquardt(
                 keep = ~fin & good & solved
                 if it == newton_steps or not keep.any():
                     break
-                act, ta, aa, wa = act[keep], ta[keep], aa[keep], wa[keep]
+                act, ta, aa, wa = act[keep], _rows(ta, keep), aa[keep], _rows(wa, keep)
                 th, Sa, Aa, ga = th[keep], Sa[keep], Aa[keep], ga[keep]
                 ra, ka = ra[keep], ka[keep]
         # rows not finished keep their starting point and go on with damping
     lam = np.full(N, 1e-6)
     eye = np.eye(q)
     act = np.flatnonzero(~done)
-    ta, aa, wa = t[act], a[act], w[act]
+    ta, aa, wa = _rows(t, act), a[act], _rows(w, act)
     for it in range(1, max_iter + 1):  # noqa: B007 - the count is returned
         if act.size == 0:
             break
@@ -369,7 +384,7 @@ def _levenberg_marquardt(
         small |= np.einsum("ij,ij->i", g[act], delta) <= 1e-13 * Sa + 1e-300
         if np.any(accept):
             ia = np.flatnonzero(accept)
-            At, gt = _normal_equations([c[ia] for c in cols_t], wa[ia], rt[ia])
+            At, gt = _normal_equations([c[ia] for c in cols_t], _rows(wa, ia), rt[ia])
             rows = act[ia]
             theta[rows] = trial[ia]
             S[rows] = St[ia]
@@ -383,7 +398,7 @@ def _levenberg_marquardt(
             done[act[finished]] = True
             keep = ~finished
             act = act[keep]
-            ta, aa, wa = ta[keep], aa[keep], wa[keep]
+            ta, aa, wa = _rows(ta, keep), aa[keep], _rows(wa, keep)
     return theta, S, A, done, it
 
 
@@ -426,9 +441,11 @@ def fit_decay(
     a2 = _as_2d(a, "a")
     N = max(t2.shape[0], a2.shape[0])
     n = max(t2.shape[1], a2.shape[1])
-    t2 = np.broadcast_to(t2, (N, n))
+    # arrays shared by every data set stay one row (1, n): they broadcast, and they are not
+    # copied when the iteration drops the data sets that have converged
+    t2 = _shared_or_full(t2, N, n)
     a2 = np.broadcast_to(a2, (N, n))
-    w2 = np.ones((N, n)) if weights is None else np.broadcast_to(_as_2d(weights, "weights"), (N, n))
+    w2 = np.ones((1, n)) if weights is None else _shared_or_full(_as_2d(weights, "weights"), N, n)
     if np.any(w2 < 0) or not np.all(np.isfinite(w2)):
         raise InputError("weights must be finite and >= 0.")
     fc, fa = _fixed(baseline, N), _fixed(initial, N)
