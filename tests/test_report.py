@@ -138,6 +138,27 @@ def _with_bayes_and_plan(doc: dict) -> dict:
             "matrix": [[1.0, 0.12, -0.05], [0.12, 1.0, 0.02], [-0.05, 0.02, 1.0]],
         },
     }
+    d["warnings"] = [
+        *d["warnings"],
+        {
+            "level": "warning",
+            "check": "residual pattern",
+            "run": "r2",
+            "message": "hand-made: the residuals of run r2 run in long same-sign stretches.",
+        },
+    ]
+    q0 = d["quantities"][heads[0]]
+    cross = {
+        "input": "concentration/oh_stock × glassware/cyl50",
+        "group": "correlation",
+        "sensitivity": None,
+        "u_input": None,
+        "u_contribution": 3.4e-4,
+        "variance": -1.2e-7,
+        "share": -0.0204,
+    }
+    q0["budget"] = [*q0["budget"], cross]
+    q0["budget_by_group"] = [*q0["budget_by_group"], {**cross, "input": "correlation"}]
     d["plan"] = {
         "quantities": {
             heads[0]: {
@@ -403,6 +424,12 @@ def test_safety_and_reproducibility_content(full):
     assert "uqreport demo --out study --draws 5000" in text
     # the hand-made predictive-check outlier is named by run, table and line
     assert "batch_r2.csv 9" in text
+    # the hand-made cross term is in the budget table with its negative share
+    assert "concentration/oh_stock × glassware/cyl50 correlation" in text
+    assert "-2.0 %" in text
+    # the hand-made warning is on the summary page and in the assumptions table
+    assert "residual pattern [run r2]: hand-made" in _norm(pages[0])
+    assert "warning (run r2): hand-made" in text
 
 
 def test_figures_at_least_150_dpi(full):
@@ -460,6 +487,52 @@ def test_markup_and_non_ascii_names_render_literally(analysed, tmp_path):
     meta = pypdf.PdfReader(str(path)).metadata
     assert meta.title == "Lösung µ-Ω 25 °C <i>study</i> & more"
     assert meta.author == "Gruppe Ω & <b>"
+
+
+def test_without_monte_carlo_and_not_invented(analysed, tmp_path):
+    """A linear-only analysis of a real (not invented) study: no banner, the summary says
+    Monte Carlo was not run, and every section still lays out."""
+    res, doc = analysed
+    d = _bare(doc)
+    d["study"] = {**d["study"], "invented": False}
+    d["settings"] = {**d["settings"], "montecarlo": False, "draws": None}
+    for q in d["quantities"].values():
+        q.pop("montecarlo", None)
+    for c in d["chains"].values():
+        c["montecarlo"] = None
+    path = build_report(res, d, tmp_path / "linear.pdf")
+    pages = _pages(path)
+    text = _norm(" ".join(pages))
+    assert "INVENTED DATA" not in text
+    assert "Monte Carlo: not run for this analysis." in _norm(pages[0])
+    assert "Validation of the linear method" not in text
+    for h in BASE_HEADINGS:
+        assert h in text
+
+
+def test_standard_font_fallback(monkeypatch, tmp_path):
+    """Without a Unicode TrueType font the report uses the standard fonts and spells out
+    the glyphs they lack instead of drawing empty boxes."""
+    from uqreport.report import fonts as fonts_mod
+    from uqreport.report import pdf
+
+    monkeypatch.setattr(fonts_mod, "_font_dirs", lambda: [])
+    fonts_mod.fonts.cache_clear()
+    pdf.styles.cache_clear()
+    try:
+        assert not pdf.fonts().unicode
+        story = [pdf.para("k = 0.179 L mol⁻¹ s⁻¹ at 25 °C, ν_eff = ∞, 5 µΩ"), pdf.para(INJECTION)]
+        data, _n = pdf.build_pdf(story, title="Lösung Ω", author="a")
+        path = tmp_path / "std.pdf"
+        path.write_bytes(data)
+        text = _norm(" ".join(_pages(path)))
+        assert "L mol^-1 s^-1 at 25 °C, nu_eff = inf, 5 µOhm" in text
+        assert INJECTION in text
+    finally:
+        monkeypatch.undo()
+        fonts_mod.fonts.cache_clear()
+        pdf.styles.cache_clear()
+    assert pdf.fonts().unicode
 
 
 def test_escape_and_fallback_glyphs():

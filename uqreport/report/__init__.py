@@ -39,7 +39,8 @@ def report_story(
     posterior_draws: Mapping[str, Mapping[str, np.ndarray]] | None = None,
 ) -> tuple[list, list[str]]:
     """The flowables of the report and the headings of the sections included, in order."""
-    from reportlab.platypus import PageBreak
+    from reportlab.platypus import Spacer
+    from reportlab.platypus.flowables import PageBreakIfNotEmpty
 
     from . import pdf
     from .registry import Numbering
@@ -59,8 +60,10 @@ def report_story(
         if not flows:
             continue
         n += 1
+        while story and isinstance(story[-1], Spacer):  # no page of trailing space
+            story.pop()
         if story:
-            story.append(PageBreak() if sec.new_page else pdf.cond_break(0.2))
+            story.append(PageBreakIfNotEmpty() if sec.new_page else pdf.cond_break(0.2))
         if sec.heading:
             story.append(pdf.heading(sec.title, 1, number=str(n)))
         story.extend(flows)

@@ -24,7 +24,6 @@ from reportlab.platypus import (
     Image,
     KeepTogether,
     Paragraph,
-    Spacer,
     Table,
     TableStyle,
 )
@@ -316,7 +315,8 @@ def titled(title: str | Markup, flowable: Flowable, note: str | Markup | None = 
     out: list = [para(title, s.h3)]
     if note:
         out.append(para(note, s.note))
-    out += [flowable, Spacer(1, 8)]
+    flowable.spaceAfter = 8  # not a Spacer: that could start a page of its own
+    out.append(flowable)
     return out
 
 

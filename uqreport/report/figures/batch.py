@@ -182,6 +182,7 @@ def order_figure(
                 lw=1.0,
                 ls="--",
                 label="order 1 through the weighted-mean k",
+                zorder=3,
             )
         ax.errorbar(
             x,

@@ -258,8 +258,11 @@ def _order(ctx: ReportContext, fits: list[Mapping[str, Any]]) -> list:
     out: list = [sub(ctx, "Order in hydroxide")]
     out.append(
         pdf.para(
-            "The order b comes from the weighted straight line ln k′ = ln k_b + b ln [OH⁻]"
-            " through the runs; an order of 1 supports the pseudo-first-order treatment.",
+            pdf.Markup(
+                "The order <i>b</i> comes from the weighted straight line ln k′ = ln"
+                " k<sub>b</sub> + <i>b</i> ln [OH⁻] through the runs; an order of one supports"
+                " the pseudo-first-order treatment."
+            ),
         )
     )
     for name in ("hydroxide_order", "rate_constant_free_order"):

@@ -98,7 +98,7 @@ def _budget_table(doc: Mapping[str, Any], name: str, units: Mapping[str, str]) -
             "Share of u²(y)",
         ],
         rows,
-        widths=[2.7, 1.35, 1.05, 1.0, 1.2, 0.8],
+        widths=[2.55, 1.3, 1.0, 1.25, 1.15, 0.8],
         align="LLRRRR",
         highlight=flag,
     )

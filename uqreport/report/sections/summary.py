@@ -47,7 +47,7 @@ def _facts(ctx: ReportContext) -> Table:
     elif settings.get("draws"):
         an.append(f"Monte Carlo with {fmt.fmt_count(settings['draws'])} draws (fixed)")
     else:
-        an.append("adaptive Monte Carlo (JCGM 101, 7.9)")
+        an.append("Monte Carlo by the adaptive procedure of JCGM 101")
     rows.append(("Analysis", ", ".join(an)))
     data = [[pdf.para(k, s.cell_head), pdf.para(v, s.cell)] for k, v in rows]
     t = Table(data, colWidths=[0.24 * pdf.FRAME_WIDTH, 0.76 * pdf.FRAME_WIDTH], hAlign="LEFT")
