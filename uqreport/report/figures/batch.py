@@ -37,12 +37,19 @@ def curve_band(
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
     """f(t) and its standard uncertainty from the parameters' covariance (t from mixing)."""
     c, a0, k = (float(v) for v in params)
-    C = np.asarray(covariance, dtype=float)
     t = np.asarray(t, dtype=float)
+    try:
+        C = np.asarray(covariance, dtype=float)
+    except (TypeError, ValueError):
+        C = np.full((3, 3), np.nan)
+    if C.shape != (3, 3):
+        C = np.full((3, 3), np.nan)
     e = np.exp(-k * t)
     f = c + (a0 - c) * e
     J = np.stack([1.0 - e, e, -(a0 - c) * t * e], axis=-1)
     var = np.einsum("ni,ij,nj->n", J, C, J)
+    # no usable covariance (a fit without one): no band rather than a failed report
+    var = np.where(np.isfinite(var), var, 0.0)
     return f, np.sqrt(np.clip(var, 0.0, None))
 
 
