@@ -15,6 +15,7 @@ from pathlib import Path
 
 from . import __version__
 from .errors import ExperimentError, InputError
+from .units import pretty_unit
 
 __all__ = ["main"]
 
@@ -139,7 +140,7 @@ def _summary(res, out: Path, *, report: bool = True) -> str:
     for cname, q in res.headline:
         ch = res.chains[cname]
         est = ch.linear.estimate(q)
-        unit = "" if est.unit == "1" else f" {est.unit}"
+        unit = "" if est.unit == "1" else f" {pretty_unit(est.unit)}"
         line = (
             f"  {q} = {est.value:.4g}{unit}, U = {est.U:.2g}{unit}"
             f" (coverage factor {est.k:.3g}, {100 * est.coverage:g} % coverage)"
@@ -169,7 +170,7 @@ def _plan_table(res) -> str:
     plan = res.plan
     lines = [f"Improvement plan: {res.experiment.study.title}"]
     for q, qp in plan.quantities.items():
-        unit = "" if qp.unit == "1" else f" {qp.unit}"
+        unit = "" if qp.unit == "1" else f" {pretty_unit(qp.unit)}"
         lines.append("")
         lines.append(f"{q}: U = {qp.U:.2g}{unit} (coverage factor {qp.k:.3g})")
         lines.append(f"  {'rank':>4}  {'group':<22} {'improvement':<58} {'U new':>9} {'gain':>6}")

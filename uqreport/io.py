@@ -20,6 +20,8 @@ def atomic_write_bytes(path: str | Path, data: bytes) -> None:
             fh.write(data)
             fh.flush()
             os.fsync(fh.fileno())
+        # mkstemp makes the file private (0600); give it the mode a plain open() would
+        os.chmod(tmp, 0o666 & ~_umask())
         os.replace(tmp, target)
     except BaseException:
         try:
@@ -27,6 +29,12 @@ def atomic_write_bytes(path: str | Path, data: bytes) -> None:
         except FileNotFoundError:
             pass
         raise
+
+
+def _umask() -> int:
+    mask = os.umask(0)
+    os.umask(mask)
+    return mask
 
 
 def atomic_write_text(path: str | Path, text: str) -> None:

@@ -39,6 +39,7 @@ from .experiment.plan import PlanSection
 from .propagation import propagate_linear
 from .propagation.linear import LinearResult, relinearise
 from .tables import Table
+from .units import pretty_unit
 
 __all__ = ["Plan", "PlanCase", "QuantityPlan", "ScheduleAdvice", "plan_study"]
 
@@ -315,7 +316,7 @@ def _verdict(name: str, unit: str, ch: ChainResult, U: float, cases: list[PlanCa
         return f"No improvement was found for {label}."
     own = [c for c in cases if c.group == top.group]
     best_own = max(own, key=lambda c: c.reduction) if own else None
-    unit_s = "" if unit == "1" else f" {unit}"
+    unit_s = "" if unit == "1" else f" {pretty_unit(unit)}"
     text = f"The largest contributor to u({label}) is {top.group} ({100 * top.share:.0f} %)"
     if best_own is not None and best_own.reduction > 0:
         text += (
@@ -373,7 +374,7 @@ def _batch_cases(
         add(
             GROUPS["temperature"],
             "bath control",
-            f"holding the bath to +/-{settings.temperature.half_width or t_u:g} K",
+            f"holding the bath to ±{settings.temperature.half_width or t_u:g} K",
             {t: _U(new, t) for t in targets},
             "re-weighted",
         )

@@ -30,7 +30,15 @@ from dataclasses import dataclass
 
 from .errors import InputError
 
-__all__ = ["DIMENSIONS", "Unit", "convert_scale", "convert_value", "internal_unit", "parse_unit"]
+__all__ = [
+    "DIMENSIONS",
+    "Unit",
+    "convert_scale",
+    "convert_value",
+    "internal_unit",
+    "parse_unit",
+    "pretty_unit",
+]
 
 
 @dataclass(frozen=True)
@@ -159,3 +167,36 @@ def convert_scale(value: float, symbol: str, dimension: str, *, where: str = "un
     """Convert an uncertainty, a half-width or a difference (scale factor only, no offset)."""
     unit = parse_unit(symbol, dimension, where=where)
     return float(value) * unit.factor
+
+
+_PRETTY = {
+    "1": "",
+    "L/(mol*s)": "L mol⁻¹ s⁻¹",
+    "(L/mol)^b/s": "(L/mol)ᵇ s⁻¹",
+    "1/s": "s⁻¹",
+    "mol/L": "mol L⁻¹",
+    "L/(mol*cm)": "L mol⁻¹ cm⁻¹",
+    "J/mol": "J mol⁻¹",
+    "kJ/mol": "kJ mol⁻¹",
+    "mL/min": "mL min⁻¹",
+    "mL/s": "mL s⁻¹",
+    "degC": "°C",
+}
+
+
+def pretty_unit(unit: str | None, *, dimensionless: str = "") -> str:
+    """A unit for people to read: "L/(mol*s)" -> "L mol⁻¹ s⁻¹"; "1" -> ``dimensionless``."""
+    if unit is None:
+        return ""
+    u = str(unit).strip()
+    if u in ("1", ""):
+        return dimensionless
+    if u in _PRETTY:
+        return _PRETTY[u]
+    if "/" in u and u.count("/") == 1 and "^" not in u:
+        num, den = u.split("/")
+        den = den.strip().removeprefix("(").removesuffix(")")
+        parts = [p for p in num.split("*") if p.strip() not in ("", "1")]
+        parts += [p.strip() + "⁻¹" for p in den.split("*") if p.strip()]
+        return " ".join(p.strip() for p in parts)
+    return u.replace("*", " ")

@@ -17,6 +17,8 @@ from collections.abc import Mapping
 from dataclasses import dataclass
 from typing import Any
 
+from ..units import pretty_unit
+
 __all__ = [
     "NEGLIGIBLE_SHARE",
     "QuantityLabel",
@@ -221,37 +223,10 @@ def fmt_count(n: Any) -> str:
 
 # --- units --------------------------------------------------------------------------------
 
-_UNITS = {
-    "1": "",
-    "L/(mol*s)": "L mol⁻¹ s⁻¹",
-    "(L/mol)^b/s": "(L/mol)ᵇ s⁻¹",
-    "1/s": "s⁻¹",
-    "mol/L": "mol L⁻¹",
-    "L/(mol*cm)": "L mol⁻¹ cm⁻¹",
-    "J/mol": "J mol⁻¹",
-    "kJ/mol": "kJ mol⁻¹",
-    "mL/min": "mL min⁻¹",
-    "mL/s": "mL s⁻¹",
-    "degC": "°C",
-}
-
 
 def unit_text(unit: str | None, *, dimensionless: str = "") -> str:
     """A unit as the report writes it: "L/(mol*s)" -> "L mol⁻¹ s⁻¹"; "1" -> ``dimensionless``."""
-    if unit is None:
-        return ""
-    u = str(unit).strip()
-    if u in ("1", ""):
-        return dimensionless
-    if u in _UNITS:
-        return _UNITS[u]
-    if "/" in u and u.count("/") == 1 and "^" not in u:
-        num, den = u.split("/")
-        den = den.strip().removeprefix("(").removesuffix(")")
-        parts = [p for p in num.split("*") if p.strip() not in ("", "1")]
-        parts += [p.strip() + "⁻¹" for p in den.split("*") if p.strip()]
-        return " ".join(p.strip() for p in parts)
-    return u.replace("*", " ")
+    return pretty_unit(unit, dimensionless=dimensionless)
 
 
 # --- quantities ---------------------------------------------------------------------------
