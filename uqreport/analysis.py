@@ -14,7 +14,8 @@ from pathlib import Path
 
 from ._numeric import as_generator
 from .budget import Budget, budgets
-from .chains.batch import BatchChain, Finding, build_batch_chain
+from .chains.batch import BatchChain, build_batch_chain
+from .chains.findings import Finding
 from .errors import UqreportWarning
 from .experiment import Experiment, load_experiment
 from .propagation import (

@@ -15,6 +15,7 @@ import numpy as np
 from numpy.typing import NDArray
 from scipy import stats
 
+from ..compare import dersimonian_laird, weighted_mean
 from ..errors import ExperimentError, InputError, Problem
 from ..experiment import Experiment
 from ..inputs import InputQuantity
@@ -22,7 +23,12 @@ from ..model import MeasurementModel
 from ..models.batch import BatchStudyModel, RunModel
 from ..models.decay import decay_curve, fit_decay
 from ..propagation import propagate_linear
-from ..regression import linear_least_squares
+from .batch_checks import (
+    excess_ratio_checks,
+    log_linear_crosscheck,
+    log_linear_rate,
+    residual_checks,
+)
 from .common import (
     GROUPS,
     concentration_column,
@@ -31,29 +37,13 @@ from .common import (
     temperature_column,
     volume_column,
 )
+from .findings import Finding
 from .registry import Column, InputRegistry
 
 __all__ = ["BatchChain", "Finding", "RunFit", "build_batch_chain"]
 
-#: Below this excess ratio [OH]/[D]0 the pseudo-first-order model is refused.
-EXCESS_RATIO_ERROR = 5.0
-#: Below this excess ratio a warning says what it does to k (rule of thumb: at least 10x).
-EXCESS_RATIO_WARNING = 10.0
 #: Fewest readings in a run's fit window.
 MIN_READINGS = 5
-
-
-@dataclass(frozen=True)
-class Finding:
-    """A check's outcome: ``level`` "warning" or "note", the run it is about, and text."""
-
-    level: str
-    check: str
-    message: str
-    run: str | None = None
-
-    def as_dict(self) -> dict[str, str | None]:
-        return {"level": self.level, "check": self.check, "run": self.run, "message": self.message}
 
 
 @dataclass(frozen=True)
@@ -159,36 +149,6 @@ class BatchChain:
     findings: tuple[Finding, ...]
     consistency: dict[str, object] = field(default_factory=dict)
     headline: tuple[str, ...] = ()
-
-
-def _runs_test(signs: NDArray[np.float64]) -> float:
-    """One-sided Wald-Wolfowitz runs test: p of as few sign runs as observed (or fewer)."""
-    s = signs[signs != 0]
-    n1, n2 = int((s > 0).sum()), int((s < 0).sum())
-    n = n1 + n2
-    if n1 == 0 or n2 == 0 or n < 4:
-        return 1.0
-    runs = 1 + int(np.sum(s[1:] != s[:-1]))
-    mu = 2.0 * n1 * n2 / n + 1.0
-    var = 2.0 * n1 * n2 * (2.0 * n1 * n2 - n) / (n * n * (n - 1.0))
-    if var <= 0:
-        return 1.0
-    return float(stats.norm.cdf((runs + 0.5 - mu) / math.sqrt(var)))
-
-
-def _lag1(e: NDArray[np.float64]) -> float:
-    d = float(np.sum(e * e))
-    return float(np.sum(e[1:] * e[:-1]) / d) if d > 0 else 0.0
-
-
-def _drift_t(t: NDArray[np.float64], e: NDArray[np.float64]) -> float:
-    m = len(t) // 3
-    if m < 4:
-        return 0.0
-    tt, ee = t[-m:], e[-m:]
-    X = np.column_stack([np.ones(m), tt - tt.mean()])
-    fit = linear_least_squares(X, ee)
-    return float(fit.params[1] / fit.std_errors[1]) if fit.std_errors[1] > 0 else 0.0
 
 
 class _Builder:
@@ -598,62 +558,15 @@ class _Builder:
                 col = temperature_column(self.reg, exp.study.temperature, "temperature/study")
             temp_idx = col
 
-        # cross-check: ln(A - A_inf) straight line
-        c_, a0_, k_ = params
-        y = au - c_
-        ok = y > 3.0 * sig_eff / lu
-        ll_rate = ll_u = math.nan
-        if ok.sum() >= 3:
-            X = np.column_stack([np.ones(int(ok.sum())), tu[ok]])
-            ll = linear_least_squares(X, np.log(y[ok]), sigma=(sig_eff / lu)[ok] / y[ok])
-            ll_rate, ll_u = float(-ll.params[1]), float(ll.std_errors[1])
-
         # checks
-        fitted = decay_curve(tu, c_, a0_, k_)
-        resid_a = (au - fitted) * lu
-        wres = resid_a / sig_eff
-        rt = _runs_test(np.sign(wres))
-        r1 = _lag1(wres)
-        dt = _drift_t(tu, wres)
-        n_used = len(uj)
-        if rt < 0.01 or r1 > 2.33 / math.sqrt(n_used):
-            self.findings.append(
-                Finding(
-                    "warning",
-                    "residual pattern",
-                    f"the residuals run in long same-sign stretches (runs test p = {rt:.2g},"
-                    f" lag-1 autocorrelation {r1:.2f}): the decay may not be a single"
-                    " exponential (baseline drift, temperature change, a second process) or"
-                    " the fit window includes the mixing period.",
-                    run.name,
-                )
-            )
-        if abs(dt) > 3.0:
-            self.findings.append(
-                Finding(
-                    "warning",
-                    "end drift",
-                    f"the residuals of the last third of the run trend with time (t = {dt:.2g}):"
-                    " the absorbance drifts at the end (evaporation, settling, lamp drift or"
-                    " a slow side reaction).",
-                    run.name,
-                )
-            )
-        if math.isfinite(ll_rate):
+        c_, a0_, k_ = params
+        ll_rate, ll_u = log_linear_rate(tu, au, c_, sig_eff / lu)
+        resid_a = (au - decay_curve(tu, c_, a0_, k_)) * lu
+        rt, r1, dt, found = residual_checks(run.name, tu, resid_a / sig_eff)
+        self.findings.extend(found)
+        if baseline_mode == "fitted":
             u1 = math.sqrt(fit1.covariance[0][2, 2]) * scale
-            diff = abs(ll_rate - k_) / math.hypot(u1, ll_u)
-            if diff > 3.0 and baseline_mode == "fitted":
-                self.findings.append(
-                    Finding(
-                        "note",
-                        "log-linear cross-check",
-                        f"the ln(A - A_inf) straight line gives k' = {ll_rate:.4g} 1/s against"
-                        f" {k_:.4g} 1/s from the exponential fit ({diff:.1f} standard"
-                        " uncertainties apart); the log form weights late readings"
-                        " differently.",
-                        run.name,
-                    )
-                )
+            self.findings.extend(log_linear_crosscheck(run.name, k_, u1, ll_rate, ll_u))
         ratio = None
         if d0_nom is not None and d0_nom > 0:
             ratio = oh_nom / d0_nom
@@ -661,30 +574,11 @@ class _Builder:
             eps0 = exp.chemistry.molar_absorptivity.value
             d0_est = (a0_ - c_) / eps0 if eps0 > 0 else 0.0
             ratio = oh_nom / d0_est if d0_est > 0 else None
-        if ratio is not None:
-            if ratio < EXCESS_RATIO_ERROR:
-                self.problems.append(
-                    Problem(
-                        where,
-                        f"the excess ratio [OH]/[dye]0 is {ratio:.3g}: the excess reagent is"
-                        " used up noticeably during the run and the decay is not"
-                        " pseudo-first-order.",
-                        "use at least 10 times (better 20 times) more excess reagent than dye.",
-                    )
-                )
-                return
-            if ratio < EXCESS_RATIO_WARNING:
-                drop = 100.0 / ratio
-                self.findings.append(
-                    Finding(
-                        "warning",
-                        "excess ratio",
-                        f"[OH]/[dye]0 = {ratio:.3g} is below 10: [OH] falls by about"
-                        f" {drop:.0f} % over the run, so k' drifts down and k = k'/[OH] is"
-                        f" biased low by up to about {drop / 2:.0f} %.",
-                        run.name,
-                    )
-                )
+        probs, found = excess_ratio_checks(run.name, where, ratio)
+        self.findings.extend(found)
+        if probs:
+            self.problems.extend(probs)
+            return
 
         l0 = lu[0]
         cov = fit1.covariance[0] * scale**2
@@ -886,18 +780,14 @@ def build_batch_chain(exp: Experiment) -> BatchChain:
     consistency: dict[str, object] = {"runs": R}
     tau_rel = 0.0
     if R >= 2:
-        w = 1.0 / var_k
-        kbar = float(np.sum(w * k_r) / np.sum(w))
-        Q = float(np.sum(w * (k_r - kbar) ** 2))
-        dof = R - 1
-        tau2 = max(0.0, (Q - dof) / (np.sum(w) - np.sum(w**2) / np.sum(w)))
-        p_val = float(stats.chi2.sf(Q, dof))
-        birge = math.sqrt(Q / dof)
+        wm = weighted_mean(k_r, np.sqrt(var_k))
+        Q, dof, p_val, birge = wm.chi2, wm.dof, wm.p_value, wm.birge_ratio
         # The run-to-run spread is carried only when the runs are inconsistent at the 5 %
         # level: a random-effects estimate added whenever it comes out positive inflates the
         # uncertainty of consistent studies (it is positive in a third of them by chance),
         # and the intervals then over-cover (seen in the coverage study).
-        tau_rel = math.sqrt(tau2) / kbar if (kbar > 0 and p_val < 0.05) else 0.0
+        tau = math.sqrt(dersimonian_laird(k_r, np.sqrt(var_k)))
+        tau_rel = tau / wm.mean if (wm.mean > 0 and p_val < 0.05) else 0.0
         consistency.update(chi2=Q, dof=dof, birge_ratio=birge, p_value=p_val, tau_relative=tau_rel)
         if p_val < 0.05:
             b.findings.append(
