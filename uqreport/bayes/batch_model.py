@@ -44,6 +44,7 @@ from .likelihoods import (
     explicit_loglik,
     laplace_student,
     marginal_gaussian,
+    marginal_gaussian_loglik,
 )
 from .priors import Prior, between_run_prior, noise_scale_prior, prior_from_input
 
@@ -51,6 +52,7 @@ __all__ = ["LIKELIHOODS", "LINEAR_MODES", "BatchPosterior", "build_batch_posteri
 
 LIKELIHOODS = ("gaussian", "student")
 LINEAR_MODES = ("marginalised", "sampled")
+PARAMETRISATIONS = ("centred", "non-centred")
 
 
 @dataclass(frozen=True)
@@ -65,8 +67,10 @@ class BatchPosterior:
         Least-squares start and a rough posterior sd of each parameter.
     likelihood, dof:
         ``"gaussian"`` or ``"student"`` and the t's degrees of freedom.
-    hierarchical:
-        Whether the runs' k'_r are drawn from a population (non-centred).
+    hierarchical, parametrisation:
+        Whether the runs' k'_r are drawn from a population, and how: ``"centred"`` (ln k'_r
+        and ln tau sampled, ln k~ integrated out of the normal population term) or
+        ``"non-centred"`` (ln k~, ln tau and eta_r sampled, k'_r = k~ c_r exp(tau eta_r)).
     linear:
         ``"marginalised"`` or ``"sampled"`` (A_0 and A_inf of each run).
     runs:
@@ -106,6 +110,7 @@ class BatchPosterior:
     likelihood: str
     dof: float
     hierarchical: bool
+    parametrisation: str
     linear: str
     runs: tuple[str, ...]
     y: NDArray[np.float64]
@@ -140,8 +145,8 @@ class BatchPosterior:
         """k'_r (W, R) at positions theta (W, ndim)."""
         ix = self.index
         with np.errstate(over="ignore"):
-            if self.hierarchical:
-                tau = theta[:, ix["tau"]]
+            if self.hierarchical and self.parametrisation == "non-centred":
+                tau = np.exp(theta[:, ix["tau"]])
                 eta = theta[:, ix["eta"]]
                 return np.exp(theta[:, ix["log_k"]] + np.log(self.rate_factor)[None, :] + tau * eta)
             return np.exp(theta[:, ix["log_kp"]])
@@ -149,29 +154,40 @@ class BatchPosterior:
     def _pieces(
         self, theta: NDArray[np.float64]
     ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
-        """(y - O (W, n), coef (W, n, 2), sd (W, n), O (W, R)) at theta."""
+        """(y - O (W, n) or (n,), coef (W, n, 2), sd (W, n), O (W, R)) at theta."""
         ix = self.index
         W = theta.shape[0]
-        kp = self.rates(theta)
-        s = np.exp(theta[:, ix["log_s"]])
-        lag = np.broadcast_to(self.time_origin, (W, len(self.runs))).copy()
+        r = self.run_index
+        k = self.rates(theta)[:, r]
         if ix["lag_runs"].size:
+            lag = np.broadcast_to(self.time_origin, (W, len(self.runs))).copy()
             lag[:, ix["lag_runs"]] = theta[:, ix["lag"]]
+            t = self.times + lag[:, r]
+        else:
+            t = self._t_nominal
         if ix["offset"].size:
             O = theta[:, ix["offset"]] @ self.offset_members
+            yc = self.y - O[:, r]
         else:
             O = np.broadcast_to(self.offset_nominal, (W, len(self.runs)))
-        r = self.run_index
-        k = kp[:, r]
+            yc = self._y_nominal
         with np.errstate(over="ignore", invalid="ignore", under="ignore"):
-            e = np.exp(-k * (self.times[None, :] + lag[:, r]))
+            fe = self.ratio * np.exp(-k * t)
             coef = np.empty((W, r.size, 2))
-            fe = self.ratio * e
             coef[..., 1] = fe
             np.subtract(self.ratio, fe, out=coef[..., 0])
+            s = np.exp(theta[:, ix["log_s"]])[:, r] * self.sigma
             slope = k * fe * self._amp_jit
-            sd = np.sqrt((s[:, r] * self.sigma) ** 2 + slope * slope)
-        return self.y - O[:, r], coef, sd, O
+            sd = np.sqrt(s * s + slope * slope)
+        return yc, coef, sd, O
+
+    @cached_property
+    def _t_nominal(self) -> NDArray[np.float64]:
+        return self.times + self.time_origin[self.run_index]
+
+    @cached_property
+    def _y_nominal(self) -> NDArray[np.float64]:
+        return self.y - self.offset_nominal[self.run_index]
 
     @cached_property
     def _amp_jit(self) -> NDArray[np.float64]:
@@ -240,14 +256,51 @@ class BatchPosterior:
                 yc, coef, sd, self.design, beta, likelihood=self.likelihood, dof=self.dof
             )
             return ll + self._linear_prior(O).log_density(beta)
-        fit, _ = self.linear_fit(theta)
-        return fit.loglik
+        yc, coef, sd, O = self._pieces(theta)
+        prior = self._linear_prior(O)
+        if self.likelihood == "student":
+            return laplace_student(yc, coef, sd, self.design, prior, self.dof).loglik
+        return marginal_gaussian_loglik(yc, coef, sd, self.design, prior)
+
+    def log_hierarchy(self, theta: NDArray[np.float64]) -> NDArray[np.float64]:
+        """The population term of the centred hierarchy with ln k~ integrated out.
+
+        With d_r = ln k'_r - ln c_r and a flat prior on ln k~, the integral of
+        prod_r N(d_r; ln k~, tau^2) over ln k~ is
+        (2 pi tau^2)^(-(R-1)/2) R^(-1/2) exp(-S / (2 tau^2)), S = sum_r (d_r - mean d)^2
+        (the Gaussian integral); ln k~ is then drawn per posterior draw from
+        N(mean d, tau^2 / R).  Zero in the non-centred form, which carries the population in
+        the eta_r priors."""
+        if not (self.hierarchical and self.parametrisation == "centred"):
+            return np.zeros(theta.shape[0])
+        ix = self.index
+        log_tau = theta[:, ix["tau"][0]]
+        d = theta[:, ix["log_kp"]] - np.log(self.rate_factor)
+        R = d.shape[1]
+        S = np.sum((d - d.mean(axis=1, keepdims=True)) ** 2, axis=1)
+        with np.errstate(over="ignore", invalid="ignore"):
+            val = -0.5 * S * np.exp(-2.0 * log_tau) - (R - 1) * log_tau
+        const = -0.5 * (R - 1) * math.log(2 * math.pi) - 0.5 * math.log(R)
+        return np.where(np.isfinite(val), val + const, -np.inf)
+
+    def population_log_rate(
+        self, theta: NDArray[np.float64], rng: np.random.Generator
+    ) -> NDArray[np.float64]:
+        """ln k~ per draw (D,): sampled (non-centred) or drawn from its conditional
+        N(mean d, tau^2 / R) given the draw (centred)."""
+        ix = self.index
+        if "log_k" in ix:
+            return theta[:, ix["log_k"][0]]
+        d = theta[:, ix["log_kp"]] - np.log(self.rate_factor)
+        tau = np.exp(theta[:, ix["tau"][0]])
+        return d.mean(axis=1) + tau / math.sqrt(d.shape[1]) * rng.standard_normal(d.shape[0])
 
     def log_posterior(
         self, theta: NDArray[np.float64], *, relax_bounded: bool = False
     ) -> NDArray[np.float64]:
         theta = np.atleast_2d(np.asarray(theta, dtype=float))
         lp = self.log_prior_terms(theta, relax_bounded=relax_bounded).sum(axis=1)
+        lp = lp + self.log_hierarchy(theta)
         ok = np.isfinite(lp)
         out = np.full(theta.shape[0], -np.inf)
         if np.any(ok):
@@ -334,6 +387,7 @@ def build_batch_posterior(
     likelihood: str = "gaussian",
     student_dof: float = 4.0,
     hierarchical: bool = False,
+    parametrisation: str = "centred",
     linear: str = "marginalised",
     noise_prior_width: float = 0.5,
     between_prior_scale: float = 0.1,
@@ -355,6 +409,11 @@ def build_batch_posterior(
     runs = chain.study.runs
     R = len(runs)
     fits = {f.name: f for f in chain.fits}
+    if parametrisation not in PARAMETRISATIONS:
+        raise InputError(
+            f"parametrisation = {parametrisation!r} is unknown. Fix: use 'centred' or"
+            " 'non-centred'."
+        )
     if hierarchical and R < 2:
         raise InputError(
             f"hierarchical = True needs at least 2 runs, the chain has {R}."
@@ -445,41 +504,43 @@ def build_batch_posterior(
         lnk = np.log(k_nom)
         ln_pop = float(np.sum(w * lnk) / np.sum(w))
         tau0 = 0.5 * between_run_prior(between_prior_scale).scale
-        index["log_k"] = np.array(
-            [
-                add(
-                    "log_rate_constant_population",
-                    Prior("flat"),
-                    "ln(L/(mol*s))",
-                    ln_pop,
-                    float(np.sqrt(1.0 / np.sum(w)) + tau0 / math.sqrt(R)),
-                )
-            ]
-        )
+        if parametrisation == "non-centred":
+            index["log_k"] = np.array(
+                [
+                    add(
+                        "log_rate_constant_population",
+                        Prior("flat"),
+                        "ln(L/(mol*s))",
+                        ln_pop,
+                        float(np.sqrt(1.0 / np.sum(w)) + tau0 / math.sqrt(R)),
+                    )
+                ]
+            )
         index["tau"] = np.array(
             [
                 add(
-                    "between_run_spread",
-                    between_run_prior(between_prior_scale),
-                    "1",
-                    tau0,
-                    0.5 * tau0,
-                )
-            ]
-        )
-        index["eta"] = np.array(
-            [
-                add(
-                    f"eta/{r.name}",
-                    Prior("normal", 0.0, 1.0),
-                    "1",
-                    float((lnk[j] - ln_pop) / tau0),
+                    "log_between_run_spread",
+                    between_run_prior(between_prior_scale, log_scale=True),
+                    "ln(1)",
+                    math.log(tau0),
                     1.0,
                 )
-                for j, r in enumerate(runs)
             ]
         )
-    else:
+        if parametrisation == "non-centred":
+            index["eta"] = np.array(
+                [
+                    add(
+                        f"eta/{r.name}",
+                        Prior("normal", 0.0, 1.0),
+                        "1",
+                        float((lnk[j] - ln_pop) / tau0),
+                        1.0,
+                    )
+                    for j, r in enumerate(runs)
+                ]
+            )
+    if not hierarchical or parametrisation == "centred":
         index["log_kp"] = np.array(
             [
                 add(
@@ -588,6 +649,7 @@ def build_batch_posterior(
         likelihood=likelihood,
         dof=float(student_dof),
         hierarchical=bool(hierarchical),
+        parametrisation=parametrisation,
         linear=linear,
         runs=tuple(r.name for r in runs),
         y=y,

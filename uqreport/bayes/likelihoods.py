@@ -18,8 +18,9 @@ e.g. Bishop, Pattern Recognition and Machine Learning, section 3.5, from memory)
 component gives the marginal likelihood with a uniform prior of unit density.
 
 Student t errors (robust): the integral has no closed form.  :func:`laplace_student`
-maximises the t likelihood plus the log prior over beta by iteratively reweighted least
-squares (each step an EM step, so the objective never decreases) and adds the Laplace
+maximises the t likelihood plus the log prior over beta from the Gaussian solution by
+safeguarded Newton steps (each iteration keeps the better of a Newton step and an EM step of
+iteratively reweighted least squares, which never descends) and adds the Laplace
 determinant term with the observed information at the mode (checked against numerical
 integration: within about 0.06 in log for 15 readings), falling back to the expected
 (Fisher) information (nu + 1)/(nu + 3) C'WC + L, positive definite whatever the residuals,
@@ -47,6 +48,7 @@ __all__ = [
     "gaussian_logpdf",
     "laplace_student",
     "marginal_gaussian",
+    "marginal_gaussian_loglik",
     "student_cdf",
     "student_logpdf",
 ]
@@ -100,6 +102,11 @@ class BlockDesign:
     @cached_property
     def counts(self) -> NDArray[np.intp]:
         return np.diff(np.append(self.starts, self.n_readings))
+
+    @cached_property
+    def all_used(self) -> bool:
+        """Whether every block uses all K coefficients (no column -1)."""
+        return bool(np.all(self.columns >= 0))
 
     @cached_property
     def used_mask(self) -> NDArray[np.float64]:
@@ -158,6 +165,14 @@ class LinearPrior:
     blocks: NDArray[np.float64] | None = None
     block_mean: NDArray[np.float64] | None = None
 
+    @cached_property
+    def block_terms(self) -> tuple[NDArray[np.float64], float] | None:
+        """(L_b m_b (B, K), sum m'Lm) for a constant block mean, else ``None``."""
+        if self.blocks is None or self.block_mean is None:
+            return None
+        Lm = np.einsum("bkl,bl->bk", self.blocks, self.block_mean)
+        return Lm, float(np.sum(Lm * self.block_mean))
+
     @classmethod
     def flat(cls, n_params: int) -> LinearPrior:
         return cls(np.zeros(n_params), np.zeros((n_params, n_params)))
@@ -212,20 +227,28 @@ class LinearPrior:
 
 
 def _block_sums(
-    design: BlockDesign, coef: NDArray[np.float64], w: NDArray[np.float64], y: NDArray[np.float64]
-) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
-    """Per-block C'WC (W, B, K, K), C'Wy (W, B, K) and y'Wy (W,) (one reduceat)."""
+    design: BlockDesign,
+    coef: NDArray[np.float64],
+    weights: tuple[NDArray[np.float64], ...],
+    vectors: tuple[NDArray[np.float64], ...],
+) -> tuple[list[NDArray[np.float64]], list[NDArray[np.float64]]]:
+    """Per-block C'W_iC (W, B, K, K) for each weight W_i and C'v_j (W, B, K) for each
+    vector v_j, all (W, n), in one reduceat."""
     K = coef.shape[2]
-    wy = w * y
     iu = [(a, c) for a in range(K) for c in range(a, K)]
-    parts = [coef[..., a] * coef[..., c] * w for a, c in iu] + [coef[..., a] * wy for a in range(K)]
+    parts = [coef[..., a] * coef[..., c] * w for w in weights for a, c in iu]
+    parts += [coef[..., a] * v for v in vectors for a in range(K)]
     sums = np.add.reduceat(np.stack(parts, axis=2), design.starts, axis=1)  # (W, B, q)
-    S = np.empty((*sums.shape[:2], K, K))
-    for q, (a, c) in enumerate(iu):
-        S[..., a, c] = sums[..., q]
-        S[..., c, a] = sums[..., q]
-    r = sums[..., len(iu) :]
-    return S, r, np.sum(wy * y, axis=1)
+    mats = []
+    for i in range(len(weights)):
+        S = np.empty((*sums.shape[:2], K, K))
+        for q, (a, c) in enumerate(iu):
+            S[..., a, c] = sums[..., i * len(iu) + q]
+            S[..., c, a] = sums[..., i * len(iu) + q]
+        mats.append(S)
+    off = len(weights) * len(iu)
+    vecs = [sums[..., off + j * K : off + (j + 1) * K] for j in range(len(vectors))]
+    return mats, vecs
 
 
 def _block_mean(design: BlockDesign, mean: NDArray[np.float64], W: int) -> NDArray[np.float64]:
@@ -352,7 +375,7 @@ class _System:
         self.prior = prior
         self.y = y
         self.fast = prior.blocks is not None
-        Wn = y.shape[0]
+        Wn = coef.shape[0]
         if self.fast:
             self.coef = coef * design.used_mask[None, :, :]
             self.L = prior.blocks
@@ -380,7 +403,9 @@ class _System:
     ]:
         """(S + L, b, x, y'Wy, log det, bad) for weights w (W, n)."""
         if self.fast:
-            S, r, yWy = _block_sums(self.design, self.coef, w, self.y)
+            wy = w * self.y
+            (S,), (r,) = _block_sums(self.design, self.coef, (w,), (wy,))
+            yWy = np.sum(wy * self.y, axis=1)
             S = S + self.L
             r = r + self.Lm
             x, logdet, bad = _solve_small(S, r)
@@ -394,10 +419,111 @@ class _System:
     def beta(self, x: NDArray[np.float64]) -> NDArray[np.float64]:
         return _scatter(self.design, x) if self.fast else x
 
+    def steps(
+        self,
+        x: NDArray[np.float64],
+        h_obs: NDArray[np.float64],
+        h_alt: NDArray[np.float64],
+        grad: NDArray[np.float64],
+    ) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.float64], NDArray[np.float64]]:
+        """Two candidate steps for beta from one pass over the readings.
+
+        Curvatures C'diag(h)C + L with weights ``h_obs`` (observed information) and
+        ``h_alt`` (positive: EM or Fisher), gradient C'grad - L(x - m).  Returns (x after a
+        Newton step with the observed curvature where it is positive definite, else the
+        alternative; x after a step with the alternative curvature; the curvature used by
+        the first; the alternative curvature)."""
+        if self.fast:
+            (So, Sa), (g,) = _block_sums(self.design, self.coef, (h_obs, h_alt), (grad,))
+            g = g - np.einsum("bkl,wbl->wbk", self.L, x - self.m)
+            So = So + self.L
+            Sa = Sa + self.L
+            if So.shape[-1] == 2:
+                a, b, d = So[..., 0, 0], So[..., 0, 1], So[..., 1, 1]
+                pd = (a > 0) & (a * d - b * b > 0)
+            else:
+                pd = np.all(np.linalg.eigvalsh(So) > 0, axis=-1)
+            S = np.where(pd[..., None, None], So, Sa)
+            dn, _, _ = _solve_small(S, g)
+            da, _, _ = _solve_small(Sa, g)
+            return x + dn, x + da, S, Sa
+        zero = np.zeros_like(grad)
+        So, _, _ = self.design.normal_equations(self.coef, h_obs, zero)
+        Sa, _, _ = self.design.normal_equations(self.coef, h_alt, zero)
+        _, g, _ = self.design.normal_equations(self.coef, np.ones_like(grad), grad)
+        g = g - (x - self.m) @ self.L.T
+        So = So + self.L
+        Sa = Sa + self.L
+        pd = np.all(np.linalg.eigvalsh(So) > 0, axis=-1)
+        S = np.where(pd[:, None, None], So, Sa)
+        dn, _, _ = _solve(S, g)
+        da, _, _ = _solve(Sa, g)
+        return x + dn, x + da, S, Sa
+
     def fit(self, ll, x, S) -> LinearFit:
         if self.fast:
             return LinearFit(ll, self.beta(x), self.design, blocks=S)
         return LinearFit(ll, x, self.design, precision=S)
+
+
+def _marginal_pairs(
+    y: NDArray[np.float64],
+    coef: NDArray[np.float64],
+    sd: NDArray[np.float64],
+    design: BlockDesign,
+    prior: LinearPrior,
+    loglik_only: bool = False,
+) -> LinearFit | NDArray[np.float64]:
+    """:func:`marginal_gaussian` for per-block 2 x 2 systems, fused into one pass (the
+    sampler calls it thousands of times: every numpy call counts)."""
+    Wn = coef.shape[0]
+    w = 1.0 / (sd * sd)
+    cf = coef if design.all_used else coef * design.used_mask
+    wc = cf * w[..., None]
+    wy = w * y
+    parts = np.concatenate(
+        [wc * cf[..., :1], wc[..., 1:] * cf[..., 1:], cf * wy[..., None], (wy * y)[..., None]],
+        axis=2,
+    )
+    s = np.add.reduceat(parts, design.starts, axis=1)  # (W, B, 6)
+    Lb = prior.blocks
+    a = s[..., 0] + Lb[:, 0, 0]  # type: ignore[index]
+    b = s[..., 1] + Lb[:, 0, 1]  # type: ignore[index]
+    d = s[..., 2] + Lb[:, 1, 1]  # type: ignore[index]
+    terms = prior.block_terms
+    if terms is not None:
+        Lm, mLm = terms
+        r0 = s[..., 3] + Lm[:, 0]
+        r1 = s[..., 4] + Lm[:, 1]
+    else:
+        m = _block_mean(design, prior.mean, Wn)
+        Lm_w = np.einsum("bkl,wbl->wbk", Lb, m)
+        r0 = s[..., 3] + Lm_w[..., 0]
+        r1 = s[..., 4] + Lm_w[..., 1]
+        mLm = np.sum(m * Lm_w, axis=(1, 2))
+    det = a * d - b * b
+    ok = (det > 0) & (a > 0)
+    safe = np.where(ok, det, 1.0)
+    x0 = (d * r0 - b * r1) / safe
+    x1 = (a * r1 - b * r0) / safe
+    quad = np.sum(s[..., 5] - r0 * x0 - r1 * x1, axis=1) + mLm
+    ll = (
+        -0.5 * quad
+        - np.sum(np.log(sd), axis=1)
+        - 0.5 * np.sum(np.log(safe), axis=1)
+        + prior.log_norm
+        - 0.5 * (design.n_readings - design.n_params) * _LOG_2PI
+    )
+    bad = ~np.all(ok, axis=1) | ~np.isfinite(ll)
+    ll = np.where(bad, -np.inf, ll)
+    if loglik_only:
+        return ll
+    H = np.empty((*a.shape, 2, 2))
+    H[..., 0, 0] = a
+    H[..., 0, 1] = b
+    H[..., 1, 0] = b
+    H[..., 1, 1] = d
+    return LinearFit(ll, _scatter(design, np.stack([x0, x1], axis=-1)), design, blocks=H)
 
 
 def marginal_gaussian(
@@ -412,8 +538,10 @@ def marginal_gaussian(
     ``y`` (W, n) are the readings less their known part, ``coef`` (W, n, K) the coefficients
     of the linear parameters, ``sd`` (W, n) the standard deviations of the readings.
     """
-    n, P = design.n_readings, design.n_params
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+        if prior.blocks is not None and coef.shape[2] == 2:
+            return _marginal_pairs(y, coef, sd, design, prior)  # type: ignore[return-value]
+        n, P = design.n_readings, design.n_params
         sysm = _System(design, prior, coef, y)
         w = 1.0 / sd**2
         S, r, x, yWy, logdet, bad = sysm.solve(w)
@@ -429,6 +557,20 @@ def marginal_gaussian(
     return sysm.fit(ll, x, S)
 
 
+def marginal_gaussian_loglik(
+    y: NDArray[np.float64],
+    coef: NDArray[np.float64],
+    sd: NDArray[np.float64],
+    design: BlockDesign,
+    prior: LinearPrior,
+) -> NDArray[np.float64]:
+    """Only the log-likelihood of :func:`marginal_gaussian` (W,), the sampler's hot path."""
+    if prior.blocks is not None and coef.shape[2] == 2:
+        with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
+            return _marginal_pairs(y, coef, sd, design, prior, loglik_only=True)  # type: ignore[return-value]
+    return marginal_gaussian(y, coef, sd, design, prior).loglik
+
+
 def laplace_student(
     y: NDArray[np.float64],
     coef: NDArray[np.float64],
@@ -438,63 +580,68 @@ def laplace_student(
     dof: float,
     *,
     max_iterations: int = 100,
-    tol: float = 1e-6,
+    tol: float = 1e-4,
 ) -> LinearFit:
     """Student t likelihood integrated over the linear parameters by the Laplace method.
 
-    The mode of (t log-likelihood + log prior) over beta is found by iteratively reweighted
-    least squares from the Gaussian solution (weights (nu + 1) / (nu + z^2) / sd^2, an EM
-    step each), stopping when no fitted value moves by more than ``tol`` standard
-    deviations.  The curvature is the observed information at the mode where it is positive
-    definite (the usual case: the readings that fit outweigh an outlier's negative
-    curvature), else the Fisher information (nu + 1)/(nu + 3) C'WC + L, which always is.
+    The mode of (t log-likelihood + log prior) over beta is found from the Gaussian
+    solution by safeguarded Newton steps: each iteration computes a Newton step (observed
+    information where positive definite) and an EM step (iteratively reweighted least
+    squares, weights (nu + 1)/(nu + z^2)/sd^2, which never decreases the objective), keeps
+    the Newton step unless it lowers the objective, stopping when no fitted value moves by
+    more than ``tol`` standard deviations.  The curvature is the observed information at
+    the mode where it is positive definite (the usual case: the readings that fit outweigh
+    an outlier's negative curvature), else the Fisher information (nu + 1)/(nu + 3) C'WC +
+    L, which always is.
     """
     nu = float(dof)
     P = design.n_params
     with np.errstate(divide="ignore", invalid="ignore", over="ignore"):
         sysm = _System(design, prior, coef, y)
         w = 1.0 / sd**2
-        Sw, _, x, _, _, bad = sysm.solve(w)
-        beta = sysm.beta(x)
-        cf = coef * design.used_mask
-        mu = design.predict(cf, beta)
-        bad_i = np.zeros_like(bad)
+        _, _, x, _, _, bad = sysm.solve(w)
+        cf = sysm.coef
+
+        def objective(xx: NDArray[np.float64]) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+            bb = sysm.beta(xx)
+            mm = design.predict(cf, bb)
+            f = np.sum(student_logpdf(y - mm, sd, nu), axis=1) + prior.log_density(bb)
+            return np.where(np.isfinite(f), f, -np.inf), mm
+
+        f_cur, mu = objective(x)
+        shape = (-1,) + (1,) * (x.ndim - 1)
         for _ in range(max_iterations):  # loop over iterations, each vectorised over walkers
-            z2 = (y - mu) ** 2 * w
+            r = y - mu
+            z2 = r * r * w
             omega = (nu + 1.0) / (nu + z2) * w
-            _, _, x, _, _, bad_i = sysm.solve(omega)
-            beta = sysm.beta(x)
-            mu_new = design.predict(cf, beta)
+            x_n, x_e, _, _ = sysm.steps(x, omega * (nu - z2) / (nu + z2), omega, omega * r)
+            f_new, mu_new = objective(x_n)
+            worse = ~(f_new >= f_cur)
+            if np.any(worse):  # the EM step never decreases the objective: take it there
+                f_e, mu_e = objective(x_e)
+                x_n = np.where(worse.reshape(shape), x_e, x_n)
+                f_new = np.where(worse, f_e, f_new)
+                mu_new = np.where(worse[:, None], mu_e, mu_new)
+            x = x_n
+            f_cur = f_new
             step = np.nanmax(np.abs(mu_new - mu) * np.sqrt(w))
             mu = mu_new
             if not np.isfinite(step) or step < tol:
                 break
-        bad = bad | bad_i
-        # curvature at the mode: the observed information C' diag(w (nu+1)(nu-z^2)/(nu+z^2)^2)
-        # C + L where it is positive definite, else the Fisher information c_nu C'WC + L
-        z2 = (y - mu) ** 2 * w
-        H_obs = sysm.solve(w * (nu + 1.0) * (nu - z2) / (nu + z2) ** 2)[0]
-        c = (nu + 1.0) / (nu + 3.0)
-        H_fis = c * (Sw - sysm.L) + sysm.L
+        # curvature at the mode: the observed information where positive definite, else the
+        # Fisher information c_nu C'WC + L (always positive definite)
+        r = y - mu
+        z2 = r * r * w
+        omega = (nu + 1.0) / (nu + z2) * w
+        c_nu = (nu + 1.0) / (nu + 3.0)
+        _, _, H, _ = sysm.steps(x, omega * (nu - z2) / (nu + z2), c_nu * w, omega * r)
         if sysm.fast:
-            _, ld_obs, bad_obs = _solve_small(H_obs, np.zeros(H_obs.shape[:-1]))
-            _, ld_fis, bad_h = _solve_small(H_fis, np.zeros(H_fis.shape[:-1]))
+            _, logdet, bad_d = _solve_small(H, np.zeros(H.shape[:-1]))
         else:
-            sg_o, ld_obs = np.linalg.slogdet(H_obs)
-            sg_f, ld_fis = np.linalg.slogdet(H_fis)
-            bad_obs, bad_h = ~(sg_o > 0), ~(sg_f > 0)
-        use_obs = ~bad_obs
-        logdet = np.where(use_obs, ld_obs, ld_fis)
-        shape = (-1,) + (1,) * (H_obs.ndim - 1)
-        H = np.where(use_obs.reshape(shape), H_obs, H_fis)
-        bad_h = bad_h & bad_obs
-        ll = (
-            np.sum(student_logpdf(y - mu, sd, nu), axis=1)
-            + prior.log_density(beta)
-            + 0.5 * P * _LOG_2PI
-            - 0.5 * logdet
-        )
-    ll = np.where(bad | bad_h | ~np.isfinite(ll), -np.inf, ll)
+            sign, logdet = np.linalg.slogdet(H)
+            bad_d = ~(sign > 0)
+        ll = f_cur + 0.5 * P * _LOG_2PI - 0.5 * logdet
+    ll = np.where(bad | bad_d | ~np.isfinite(ll), -np.inf, ll)
     return sysm.fit(ll, x, H)
 
 

@@ -39,7 +39,16 @@ __all__ = [
 
 #: Kinds of :class:`Prior`; the first five are the input distributions of
 #: :mod:`uqreport.inputs`.
-PRIOR_KINDS = ("normal", "rectangular", "triangular", "arcsine", "t", "flat", "halfnormal")
+PRIOR_KINDS = (
+    "normal",
+    "rectangular",
+    "triangular",
+    "arcsine",
+    "t",
+    "flat",
+    "halfnormal",
+    "log-halfnormal",
+)
 
 _LOG_2PI = math.log(2.0 * math.pi)
 
@@ -54,11 +63,14 @@ class Prior:
         One of :data:`PRIOR_KINDS`.
     loc:
         Location: the mean (normal), the centre (rectangular, triangular, arcsine), the
-        location of the t, the lower end of the half-normal (usually 0).
+        location of the t, the lower end of the half-normal (usually 0; ignored for the
+        log-halfnormal).
     scale:
         The standard deviation (normal), the scale of the t (the GUM standard uncertainty),
         the half-width a (rectangular, triangular, arcsine), the scale of the half-normal.
-        Ignored for ``flat``.
+        Ignored for ``flat``.  ``log-halfnormal`` is the density of u = ln x when x is
+        half-normal with this scale: p(u) = 2 N(e^u; 0, scale^2) e^u (the Jacobian e^u),
+        for sampling a positive spread on the log scale.
     dof:
         Degrees of freedom of the t.
     """
@@ -118,6 +130,9 @@ class Prior:
             return a * math.sqrt(self.dof / (self.dof - 2.0)) if self.dof > 2 else math.inf
         if k == "halfnormal":
             return a * math.sqrt(1.0 - 2.0 / math.pi)
+        if k == "log-halfnormal":
+            # sd of ln|z| for a standard normal z: sqrt(pi^2/8) (standard result, from memory)
+            return math.pi / math.sqrt(8.0)
         return math.inf
 
     def describe(self) -> str:
@@ -131,6 +146,8 @@ class Prior:
             return f"Student t (location {self.loc:.6g}, scale {self.scale:.6g}, {self.dof:g} dof)"
         if self.kind == "halfnormal":
             return f"half-normal on [{self.loc:.6g}, inf) with scale {self.scale:.6g}"
+        if self.kind == "log-halfnormal":
+            return f"log of a half-normal with scale {self.scale:.6g}"
         return "flat"
 
     # -- densities ------------------------------------------------------------------------
@@ -156,6 +173,9 @@ class Prior:
             if k == "halfnormal":
                 val = -0.5 * (d / a) ** 2 - math.log(a) - 0.5 * _LOG_2PI + math.log(2.0)
                 return np.where(d >= 0.0, val, -np.inf)
+            if k == "log-halfnormal":
+                ex = np.exp(x)
+                return -0.5 * (ex / a) ** 2 - math.log(a) - 0.5 * _LOG_2PI + math.log(2.0) + x
             inside = np.abs(d) <= a
             if k == "rectangular":
                 return np.where(inside, -math.log(2.0 * a), -np.inf)
@@ -190,6 +210,8 @@ class Prior:
             return m + a * np.sin(2.0 * np.pi * rng.random(n))
         if k == "halfnormal":
             return m + a * np.abs(rng.standard_normal(n))
+        if k == "log-halfnormal":
+            return np.log(a * np.abs(rng.standard_normal(n)))
         raise InputError("a flat prior cannot be sampled. Fix: give the parameter a proper prior.")
 
 
@@ -244,13 +266,14 @@ def noise_scale_prior(relative_reliability: float = 0.5) -> Prior:
     return Prior("normal", 0.0, r)
 
 
-def between_run_prior(scale: float = 0.1) -> Prior:
+def between_run_prior(scale: float = 0.1, *, log_scale: bool = False) -> Prior:
     """Prior of the relative run-to-run spread tau of the hierarchical model.
 
     Half-normal with scale ``scale`` (default 0.1: runs of one bench study that disagree by
     more than about 20 % in k are implausible but not excluded).  Weakly informative: it
     keeps tau finite when only two or three runs inform it, and puts its mode at zero (no
-    spread), so that consistent runs are pooled.
+    spread), so that consistent runs are pooled.  ``log_scale=True`` gives the same prior as
+    a density of ln tau (the sampled coordinate: no hard wall at tau = 0).
     """
     s = float(scale)
     if not (s > 0 and math.isfinite(s)):
@@ -258,4 +281,4 @@ def between_run_prior(scale: float = 0.1) -> Prior:
             f"between-run prior scale must be a finite number > 0, got {scale!r}."
             " Fix: give a relative spread such as 0.1 (10 %)."
         )
-    return Prior("halfnormal", 0.0, s)
+    return Prior("log-halfnormal" if log_scale else "halfnormal", 0.0, s)
