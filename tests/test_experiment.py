@@ -729,7 +729,7 @@ def test_any_damaged_file_is_loaded_or_reported(mutations):
 def test_docs_python_example_runs(tmp_path, monkeypatch):
     (code,) = _blocks("python")
     shutil.copytree(GOOD, tmp_path / "study")
-    monkeypatch.chdir(tmp_path)
+    monkeypatch.chdir(tmp_path / "study")
     namespace: dict = {}
     exec(compile(code, str(DOCS), "exec"), namespace)  # the documented snippet itself
     assert namespace["exp"].quantity("solutions.oh_stock.concentration").value == 0.2
