@@ -8,7 +8,8 @@ its diagnostics (:mod:`.diagnostics`).  The method is described in ``docs/bayes.
 """
 
 from .batch import batch_posterior
-from .batch_model import BatchPosterior, build_batch_posterior
+from .batch_model import BatchPosterior
+from .batch_setup import build_batch_posterior
 from .diagnostics import PredictiveCheck, hdi, integrated_time, split_rhat
 from .priors import Prior, between_run_prior, noise_scale_prior, prior_from_input
 from .results import CredibleInterval, PosteriorResult, PosteriorSettings, PosteriorSummary

@@ -34,7 +34,8 @@ from scipy import stats
 from .._numeric import RandomLike, as_generator
 from ..chains.batch import BatchChain
 from ..errors import ConvergenceWarning, InputError
-from .batch_model import BatchPosterior, build_batch_posterior
+from .batch_model import BatchPosterior
+from .batch_setup import build_batch_posterior
 from .diagnostics import check_acceptance, predictive_check, split_rhat
 from .results import (
     PosteriorResult,

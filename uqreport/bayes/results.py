@@ -10,7 +10,7 @@ from __future__ import annotations
 
 import io
 import math
-from collections.abc import Mapping, Sequence
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
@@ -471,7 +471,3 @@ def correlation_matrix(draws: NDArray[np.float64]) -> NDArray[np.float64]:
     r = d.T @ d / a.shape[0]
     np.fill_diagonal(r, 1.0)
     return r
-
-
-def names_for(prefix: str, runs: Sequence[str]) -> tuple[str, ...]:
-    return tuple(f"{prefix}/{r}" for r in runs)
