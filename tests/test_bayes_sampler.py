@@ -256,3 +256,17 @@ def test_rhat_and_ess_against_arviz():
     ess = x.size / integrated_time(x)[0]
     ref_ess = float(az.ess(az.convert_to_dataset(x.T), method="mean")["x"].values)
     assert ess == pytest.approx(ref_ess, rel=0.05)
+
+
+def test_progress_bar_only_when_asked(capsys):
+    """tqdm progress on request (the command line asks); quiet by default."""
+
+    def logp(th):
+        return -0.5 * np.sum(th * th, axis=1)
+
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", ConvergenceWarning)
+        run_ensembles(logp, np.zeros(2), np.ones(2), rng=1, max_steps=200)
+        assert capsys.readouterr().err == ""
+        run_ensembles(logp, np.zeros(2), np.ones(2), rng=1, max_steps=200, progress=True)
+    assert "MCMC" in capsys.readouterr().err
