@@ -328,6 +328,7 @@ def batch_posterior(
         likelihood=post.likelihood,
         student_dof=float(student_dof),
         hierarchical=post.hierarchical,
+        parametrisation=post.parametrisation,
         linear=post.linear,
         coverage=float(coverage),
         noise_prior_width=float(noise_prior_width),

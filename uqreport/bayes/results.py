@@ -236,8 +236,8 @@ class PosteriorSettings:
         The seed of each ensemble's RandomState, drawn from the Generator.
     likelihood, student_dof:
         ``"gaussian"`` or ``"student"`` and the t's degrees of freedom.
-    hierarchical, linear:
-        The hierarchical option and how A_0, A_inf were handled.
+    hierarchical, parametrisation, linear:
+        The hierarchical option, its parametrisation, and how A_0, A_inf were handled.
     coverage:
         The requested coverage probability.
     noise_prior_width, between_prior_scale:
@@ -258,6 +258,7 @@ class PosteriorSettings:
     likelihood: str
     student_dof: float
     hierarchical: bool
+    parametrisation: str
     linear: str
     coverage: float
     noise_prior_width: float
