@@ -196,3 +196,18 @@ def test_run_disagreement_adds_run_to_run_scatter(demo):
     j = lin.index("second_order_rate_constant")
     assert lin.u[j] > base.u[base.index("second_order_rate_constant")]
     assert math.isfinite(lin.dof[j]) and lin.dof[j] < 50
+
+
+def test_exact_lag_is_applied_by_the_model(demo):
+    """A lag stated exact (u = 0) has no input, but the model must still shift the times by
+    it: with A0 fixed from the concentration the model at the estimates reproduces the
+    nominal fit."""
+    edit_toml(demo, 'lag = { value = 8, u = 3, unit = "s"', 'lag = { value = 8, u = 0, unit = "s"')
+    set_batch_option(demo, "initial", '"from_concentration"')
+    ch = build_batch_chain(load_experiment(demo))
+    y = ch.model.at_estimates()
+    names = ch.model.output_names
+    for fit in ch.fits:
+        assert y[names.index(f"pseudo_rate_constant/{fit.name}")] == pytest.approx(
+            fit.params[2], rel=1e-8
+        )

@@ -613,7 +613,8 @@ class _Builder:
         self.runs.append(
             RunModel(
                 name=run.name,
-                times=t_rec[uj],
+                # an exact lag has no input: it is added to the recorded times here
+                times=t_rec[uj] + (lag_val if lag_idx is None else 0.0),
                 reading=np.array(reading_idx),
                 pathlength=path_idx,
                 offsets=offs,
