@@ -53,6 +53,16 @@ class Settings:
         Whether Monte Carlo was run.
     plan:
         Whether the improvement planner was run.
+    mcmc:
+        Whether the Bayesian posterior was sampled (emcee).
+    chains:
+        Independently seeded ensembles (1, or >= 4 for split R-hat).
+    likelihood:
+        ``"gaussian"`` or ``"student"`` (robust against outlying readings).
+    hierarchical:
+        Run-level rate constants with a between-run spread.
+    progress:
+        Show the sampler's progress bar.
     """
 
     coverage: float = 0.95
@@ -62,6 +72,11 @@ class Settings:
     max_draws: int = 1_000_000
     montecarlo: bool = True
     plan: bool = True
+    mcmc: bool = True
+    chains: int = 1
+    likelihood: str = "gaussian"
+    hierarchical: bool = False
+    progress: bool = False
 
     def as_dict(self) -> dict[str, object]:
         return {
@@ -72,6 +87,10 @@ class Settings:
             "max_draws": self.max_draws,
             "montecarlo": self.montecarlo,
             "plan": self.plan,
+            "mcmc": self.mcmc,
+            "chains": self.chains,
+            "likelihood": self.likelihood,
+            "hierarchical": self.hierarchical,
         }
 
 
@@ -93,6 +112,8 @@ class ChainResult:
         JCGM 101 section 8 validation per output (empty without Monte Carlo).
     budgets:
         The budget of every output.
+    posterior:
+        The Bayesian posterior (:class:`uqreport.bayes.PosteriorResult`), or ``None``.
     """
 
     name: str
@@ -101,6 +122,7 @@ class ChainResult:
     montecarlo: MonteCarloResult | None
     validation: dict[str, ValidationResult]
     budgets: dict[str, Budget]
+    posterior: object | None = None
 
     @property
     def headline(self) -> tuple[str, ...]:
@@ -173,7 +195,29 @@ def _run_engines(
             else:
                 warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
         val = validate_linear(lin, mc)
-    return ChainResult(name, chain, lin, mc, val, budgets(lin))
+    post = None
+    if settings.mcmc and name == "batch":
+        from .bayes import batch_posterior  # emcee is imported only when sampling
+
+        with warnings.catch_warnings(record=True) as caught:
+            warnings.simplefilter("always", UqreportWarning)
+            post = batch_posterior(
+                chain,
+                rng=seed_stream,
+                likelihood=settings.likelihood,
+                hierarchical=settings.hierarchical,
+                chains=settings.chains,
+                progress=settings.progress,
+                coverage=settings.coverage,
+            )
+        for w in caught:
+            if issubclass(w.category, UqreportWarning):
+                findings.append(Finding("warning", "Bayesian", str(w.message)))
+            else:
+                warnings.warn_explicit(w.message, w.category, w.filename, w.lineno)
+        for note in post.notes:
+            findings.append(Finding("note", "Bayesian", note))
+    return ChainResult(name, chain, lin, mc, val, budgets(lin), post)
 
 
 def analyze(

@@ -8,6 +8,7 @@ from __future__ import annotations
 
 import argparse
 import json
+import os
 import sys
 import traceback
 from collections.abc import Sequence
@@ -74,7 +75,29 @@ def _parser() -> argparse.ArgumentParser:
         sp.add_argument(
             "--coverage", type=_coverage, default=0.95, help="coverage probability (default 0.95)"
         )
-        sp.add_argument("--no-montecarlo", action="store_true", help="linear propagation only")
+        sp.add_argument("--no-montecarlo", action="store_true", help="skip Monte Carlo")
+        sp.add_argument("--no-mcmc", action="store_true", help="skip the Bayesian posterior")
+        sp.add_argument(
+            "--chains",
+            type=int,
+            default=1,
+            help="independently seeded MCMC ensembles (1, or 4 or more for split R-hat)",
+        )
+        sp.add_argument(
+            "--robust",
+            action="store_true",
+            help="Student t likelihood for the posterior (outlying readings weigh less)",
+        )
+        sp.add_argument(
+            "--hierarchical",
+            action="store_true",
+            help="posterior with run-level rate constants and a between-run spread",
+        )
+        sp.add_argument(
+            "--save-draws",
+            action="store_true",
+            help="write the posterior draws (posterior.npz; posterior.nc too with ArviZ)",
+        )
         sp.add_argument("--no-report", action="store_true", help="do not write report.pdf")
         sp.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
@@ -124,11 +147,22 @@ def _parser() -> argparse.ArgumentParser:
 def _settings(args: argparse.Namespace):
     from .analysis import DEFAULT_SEED, Settings
 
+    if args.chains < 1 or args.chains in (2, 3):
+        raise InputError(
+            f"--chains {args.chains}: give 1, or 4 or more (split R-hat needs at least four"
+            " independently seeded ensembles)."
+        )
+    interactive = sys.stderr.isatty() and not args.quiet and not os.environ.get("CI")
     return Settings(
         coverage=args.coverage,
         seed=DEFAULT_SEED if args.seed is None else args.seed,
         draws=args.draws,
         montecarlo=not args.no_montecarlo,
+        mcmc=not args.no_mcmc,
+        chains=args.chains,
+        likelihood="student" if args.robust else "gaussian",
+        hierarchical=args.hierarchical,
+        progress=interactive,
     )
 
 
@@ -152,6 +186,11 @@ def _summary(res, out: Path, *, report: bool = True) -> str:
                 f"; Monte Carlo [{mc.low:.4g}, {mc.high:.4g}],"
                 f" {'validated' if v.validated else 'not validated'}"
             )
+        if ch.posterior is not None and q in ch.posterior.quantities:
+            bq = ch.posterior.quantities[q]
+            line += f"; Bayesian [{bq.low:.4g}, {bq.high:.4g}]"
+            if not bq.converged:
+                line += " (not converged)"
         lines.append(line)
         b = ch.budgets[q]
         top = ", ".join(f"{e.input} {100 * e.share:.0f} %" for e in b.top(3))
@@ -226,15 +265,32 @@ def _plan(args: argparse.Namespace, argv: list[str]) -> int:
 
 def _analyze(exp_path: Path, out: Path, args: argparse.Namespace, argv: list[str]) -> int:
     from .analysis import analyze
-    from .results import results_dict, write_results
+    from .results import parameter_label, results_dict, write_results
 
     res = analyze(exp_path, settings=_settings(args))
     doc = results_dict(res, command_line=["uqreport", *argv])
     write_results(res, out, doc=doc)
+    draws = {
+        c: {
+            parameter_label(n): ch.posterior.draws[:, i]
+            for i, n in enumerate(ch.posterior.parameter_names)
+        }
+        for c, ch in res.chains.items()
+        if ch.posterior is not None
+    }
+    if args.save_draws:
+        for c, ch in res.chains.items():
+            if ch.posterior is None:
+                continue
+            ch.posterior.save_draws(out / f"posterior_{c}.npz")
+            try:
+                ch.posterior.to_netcdf(out / f"posterior_{c}.nc")
+            except InputError:
+                pass  # ArviZ is an optional extra; the .npz file has the same draws
     if not args.no_report:
         from .report import build_report
 
-        build_report(res, doc, out / "report.pdf")
+        build_report(res, doc, out / "report.pdf", posterior_draws=draws or None)
     if not args.quiet:
         print(_summary(res, out, report=not args.no_report))
     return EXIT_OK

@@ -25,7 +25,14 @@ from .analysis import ChainResult, StudyResult
 from .budget import Budget
 from .io import atomic_write_text
 
-__all__ = ["SCHEMA", "budget_csv", "fits_csv", "results_dict", "write_results"]
+__all__ = [
+    "SCHEMA",
+    "budget_csv",
+    "fits_csv",
+    "parameter_label",
+    "results_dict",
+    "write_results",
+]
 
 SCHEMA = "uqreport.results/1"
 
@@ -104,12 +111,128 @@ def _quantities(res: StudyResult) -> dict[str, Any]:
                 mc["validated"] = v.validated
                 mc["validation"] = v.as_dict()
                 rec["montecarlo"] = mc
+            if ch.posterior is not None and o.name in ch.posterior.quantities:
+                rec["bayes"] = _bayes_quantity(ch.posterior.quantities[o.name])
             b = ch.budgets[o.name]
             rec["budget"] = _budget_records(b, "input")
             rec["budget_by_group"] = _budget_records(b, "group")
             out[o.name] = rec
             del j
     return out
+
+
+def _bayes_quantity(summary) -> dict[str, Any]:
+    """The ``bayes`` record of a quantity: median, sd, equal-tailed intervals (stated
+    coverage and 68.27 %), highest-density interval, ESS, tau, R-hat, converged."""
+    d = summary.as_dict()
+    out = {
+        k: d.get(k)
+        for k in (
+            "median",
+            "mean",
+            "sd",
+            "low",
+            "high",
+            "coverage",
+            "hdi_low",
+            "hdi_high",
+            "ess",
+            "tau",
+            "rhat",
+            "converged",
+        )
+    }
+    for iv in d.get("intervals", []):
+        if abs(float(iv["coverage"]) - 0.6827) < 1e-3:
+            out["low_68"], out["high_68"] = iv["low"], iv["high"]
+    return out
+
+
+_PARAMETER_SYMBOLS = {
+    "log_pseudo_rate_constant": "ln k'",
+    "log_noise_scale": "ln s",
+    "pseudo_rate_constant": "k'",
+    "noise_scale": "s",
+    "baseline": "A_inf",
+    "initial": "A_0",
+    "lag": "lag",
+    "blank": "blank",
+    "log_between_run_spread": "ln tau",
+    "log_rate_constant_population": "ln k",
+    "eta": "eta",
+    "final": "A_inf",
+    "photometric_accuracy": "phot",
+    "pathlength": "l",
+}
+
+
+def parameter_label(name: str) -> str:
+    """A short label of a posterior parameter for tables and plots ("ln k'(r1)")."""
+    base, _, run = name.partition("/")
+    sym = _PARAMETER_SYMBOLS.get(base, base)
+    return f"{sym}({run})" if run else sym
+
+
+def _bayes_chain(post) -> dict[str, Any]:
+    """The chain-level ``bayes`` record: settings, convergence, diagnostics per parameter,
+    the posterior predictive check and the correlation of the sampled parameters."""
+    from scipy import stats
+
+    d = post.as_dict()
+    diag = d["diagnostics"]
+    acc = diag.get("acceptance") or []
+    rhat = diag.get("rhat") or {}
+    params = []
+    for name in post.parameter_names:
+        tau = (diag.get("tau") or {}).get(name)
+        params.append(
+            {
+                "parameter": name,
+                "tau": tau,
+                "ess": (diag.get("ess") or {}).get(name),
+                "acceptance": float(np.mean(acc)) if len(acc) else None,
+                "rhat": rhat.get(name) if isinstance(rhat, dict) else None,
+                "converged": bool(post.parameters[name].converged)
+                if name in post.parameters
+                else bool(diag.get("converged")),
+            }
+        )
+    pc = post.predictive
+    outliers = []
+    for o in pc.outliers:
+        z = float(stats.norm.isf(max(o.p_value, 1e-300) / 2.0))
+        outliers.append(
+            {
+                "run": o.run,
+                "table": o.table,
+                "line": o.line,
+                "absorbance": o.observed,
+                "predicted": o.predicted,
+                "p_value": o.p_value,
+                "z": z if o.observed >= o.predicted else -z,
+            }
+        )
+    return {
+        "converged": bool(d["converged"]),
+        "settings": d["settings"],
+        "acceptance_fraction": float(np.mean(acc)) if len(acc) else None,
+        "diagnostics": params,
+        "messages": list(diag.get("messages") or []),
+        "predictive_check": {
+            "share_outside": pc.share_outside,
+            "expected": pc.expected_share,
+            "readings": pc.n_readings,
+            "outside": pc.n_outside,
+            "log_predictive_density": pc.log_predictive_density,
+            "outliers": outliers,
+        },
+        "correlation": {
+            "parameters": [parameter_label(n) for n in post.parameter_names],
+            "names": list(post.parameter_names),
+            "matrix": post.correlation,
+        },
+        "notes": list(post.notes),
+    }
 
 
 def _inputs(ch: ChainResult) -> list[dict[str, Any]]:
@@ -190,6 +313,7 @@ def results_dict(res: StudyResult, *, command_line: list[str] | None = None) -> 
                 "headline": list(ch.headline),
                 "fits": _fits(ch),
                 "consistency": ch.chain.consistency,
+                "bayes": None if ch.posterior is None else _bayes_chain(ch.posterior),
                 "montecarlo": None
                 if ch.montecarlo is None
                 else {
