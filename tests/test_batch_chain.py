@@ -28,7 +28,7 @@ def _truth(path):
 
 def test_demo_recovers_truth_within_uncertainty(demo):
     """Simulation with known truth: every batch quantity within 3 standard uncertainties."""
-    res = analyze(demo, settings=Settings(draws=4000, seed=3, plan=False))
+    res = analyze(demo, settings=Settings(draws=4000, seed=3, plan=False, mcmc=False))
     ch = res.chains["batch"]
     truth = _truth(demo)
     for name in ch.linear.output_names:
@@ -44,7 +44,7 @@ def test_demo_recovers_truth_within_uncertainty(demo):
 def test_linear_and_monte_carlo_agree_or_validation_says_not(demo):
     """JCGM 101 8: where the linear interval is validated the two agree within delta; where
     not, the verdict says so and the d values exceed delta."""
-    res = analyze(demo, settings=Settings(draws=200_000, seed=5, plan=False))
+    res = analyze(demo, settings=Settings(draws=200_000, seed=5, plan=False, mcmc=False))
     ch = res.chains["batch"]
     for name in ch.linear.output_names:
         lin = ch.linear.estimate(name)
@@ -152,8 +152,8 @@ def test_temperature_term_follows_arrhenius(demo):
 
 
 def test_same_seed_same_numbers(demo):
-    a = analyze(demo, settings=Settings(draws=2000, seed=11, plan=False)).chains["batch"]
-    b = analyze(demo, settings=Settings(draws=2000, seed=11, plan=False)).chains["batch"]
+    a = analyze(demo, settings=Settings(draws=2000, seed=11, plan=False, mcmc=False)).chains["batch"]
+    b = analyze(demo, settings=Settings(draws=2000, seed=11, plan=False, mcmc=False)).chains["batch"]
     assert np.array_equal(a.montecarlo.values, b.montecarlo.values)
     assert np.array_equal(a.linear.values, b.linear.values)
 

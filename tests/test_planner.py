@@ -19,7 +19,7 @@ from uqreport.planner import plan_study
 @pytest.fixture(scope="module")
 def demo_result(tmp_path_factory):
     path = demo_study(tmp_path_factory.mktemp("plan") / "demo", seed=7)
-    return analyze(path, settings=Settings(montecarlo=False))
+    return analyze(path, settings=Settings(montecarlo=False, mcmc=False))
 
 
 def test_more_readings_prediction_matches_simulation(demo_result):

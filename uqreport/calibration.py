@@ -77,6 +77,7 @@ def coverage_study(
                     draws=draws,
                     montecarlo=montecarlo,
                     plan=False,
+                    mcmc=False,
                 ),
             )
             ch = res.chains["batch"]
