@@ -19,6 +19,7 @@ from numpy.typing import NDArray
 from ..errors import InputError, ModelError
 from ..inputs import InputSet
 from ..model import MeasurementModel, OutputQuantity
+from ._outputs import OutputsMixin
 from .coverage import coverage_factor, welch_satterthwaite
 
 __all__ = [
@@ -162,7 +163,7 @@ class LinearEstimate:
 
 
 @dataclass(frozen=True)
-class LinearResult:
+class LinearResult(OutputsMixin):
     """Result of :func:`propagate_linear`.
 
     Attributes
@@ -203,24 +204,6 @@ class LinearResult:
     U: NDArray[np.float64]
     coverage: float
     second_order: NDArray[np.float64] | None = None
-
-    @property
-    def output_names(self) -> tuple[str, ...]:
-        return tuple(o.name for o in self.outputs)
-
-    @property
-    def correlation(self) -> NDArray[np.float64]:
-        """Output correlation matrix r(y_i, y_j)."""
-        d = np.where(self.u > 0, self.u, 1.0)
-        r = self.covariance / np.outer(d, d)
-        np.fill_diagonal(r, 1.0)
-        return r
-
-    def index(self, name: str) -> int:
-        try:
-            return self.output_names.index(name)
-        except ValueError:
-            raise KeyError(f"no output named '{name}'") from None
 
     def estimate(self, name: str) -> LinearEstimate:
         """The :class:`LinearEstimate` of output ``name``."""

@@ -21,6 +21,7 @@ from numpy.typing import NDArray
 from .._numeric import RandomLike, as_generator
 from ..errors import ConvergenceWarning, InputError, ModelError, UqreportWarning
 from ..model import MeasurementModel, OutputQuantity
+from ._outputs import OutputsMixin
 from .coverage import numerical_tolerance
 from .linear import LinearResult
 
@@ -112,7 +113,7 @@ class MonteCarloEstimate:
 
 
 @dataclass(frozen=True)
-class MonteCarloResult:
+class MonteCarloResult(OutputsMixin):
     """Result of :func:`propagate_montecarlo`.
 
     Attributes
@@ -163,23 +164,6 @@ class MonteCarloResult:
     delta: NDArray[np.float64]
     ndig: int
     samples: NDArray[np.float64] | None = None
-
-    @property
-    def output_names(self) -> tuple[str, ...]:
-        return tuple(o.name for o in self.outputs)
-
-    @property
-    def correlation(self) -> NDArray[np.float64]:
-        d = np.where(self.u > 0, self.u, 1.0)
-        r = self.covariance / np.outer(d, d)
-        np.fill_diagonal(r, 1.0)
-        return r
-
-    def index(self, name: str) -> int:
-        try:
-            return self.output_names.index(name)
-        except ValueError:
-            raise KeyError(f"no output named '{name}'") from None
 
     def estimate(self, name: str) -> MonteCarloEstimate:
         j = self.index(name)
