@@ -85,7 +85,7 @@ def _posterior_table(ctx: ReportContext, chain: str) -> Any | None:
             "Conv.",
         ],
         rows,
-        widths=[0.9, 1.0, 0.75, 0.65, 1.35, 1.35, 1.35, 0.55, 0.5, 0.6],
+        widths=[0.8, 0.95, 0.75, 0.8, 1.35, 1.35, 1.35, 0.55, 0.5, 0.55],
         align="LLRRRRRRRL",
         highlight=flag,
     )
