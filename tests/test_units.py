@@ -96,3 +96,18 @@ def test_absorbance_and_dimensionless_both_accept_1():
     assert parse_unit("1", "dimensionless").dimension == "dimensionless"
     assert parse_unit("AU", "absorbance").factor == 1.0
     assert parse_unit("dial", "dimensionless").symbol == "1"
+
+
+def test_micromolar_with_a_lower_case_litre_is_accepted_like_mmol_per_l():
+    """mol/l and mmol/l are accepted; µmol/l was refused with "Did you mean 'mol/l'?", a
+    suggestion a million times off."""
+    for spelling in ("umol/l", "µmol/l", "μmol/l"):
+        assert convert_value(2.0, spelling, "concentration") == pytest.approx(2e-6)
+    for spelling in ("µl", "μl"):
+        assert convert_value(5.0, spelling, "volume") == pytest.approx(5e-3)
+
+
+def test_the_fix_lists_every_accepted_spelling():
+    """The fix used to stop after eight spellings, leaving out uM, µM and the rest."""
+    with pytest.raises(InputError, match=r"Fix: use one of .*'mmol/l', 'umol/L', 'uM', 'µM'"):
+        parse_unit("mol per litre", "concentration", where="x.unit")

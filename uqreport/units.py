@@ -59,13 +59,14 @@ _UNITS: dict[str, Unit] = {}
 for _table in (
     _u("concentration", 1.0, "mol/L", "M", "mol L^-1", "mol/l", "mol dm^-3", "mol/dm^3"),
     _u("concentration", 1e-3, "mmol/L", "mM", "mmol L^-1", "mmol/l"),
-    _u("concentration", 1e-6, "umol/L", "uM", "µM", "µmol/L", "umol L^-1", "μM", "μmol/L"),
+    _u("concentration", 1e-6, "umol/L", "uM", "µM", "µmol/L", "umol L^-1", "μM", "μmol/L",
+       "umol/l", "µmol/l", "μmol/l"),
     _u("time", 1.0, "s", "sec"),
     _u("time", 60.0, "min"),
     _u("time", 3600.0, "h"),
     _u("volume", 1.0, "mL", "ml", "cm^3", "cm3"),
     _u("volume", 1e3, "L", "l", "dm^3"),
-    _u("volume", 1e-3, "uL", "µL", "μL", "ul"),
+    _u("volume", 1e-3, "uL", "µL", "μL", "ul", "µl", "μl"),
     _u("length", 1.0, "cm"),
     _u("length", 0.1, "mm"),
     _u("length", 100.0, "m"),
@@ -153,7 +154,7 @@ def parse_unit(symbol: str, dimension: str, *, where: str = "unit") -> Unit:
             hint = f" Did you mean '{close[0]}'?"
     raise InputError(
         f"{where}: unknown unit '{text}' for a {dimension.replace('_', ' ')}.{hint}"
-        f" Fix: use one of {', '.join(repr(a) for a in accepted[:8])}."
+        f" Fix: use one of {', '.join(repr(a) for a in accepted)}."
     )
 
 
