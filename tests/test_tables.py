@@ -333,3 +333,33 @@ def test_damaged_tables_are_reported_never_crash(tmp_path_factory, base, edits):
         assert all(p.where.startswith(name) and p.message for p in exc.problems)
     else:
         assert len(table.frame) == len(table.line_numbers) > 0
+
+
+def test_trailing_empty_fields_are_not_taken_for_a_decimal_comma(tmp_path):
+    """'30,0.716,' has a decimal point and one empty field too many: a trailing delimiter,
+    not a decimal comma (the message used to say decimal comma)."""
+    (p,) = problems_of(write(tmp_path, "time [s],absorbance\n30,0.716,\n"))
+    assert p.where == "t.csv, line 2"
+    assert p.message == (
+        "the row has 3 fields but the header has 2 columns; the last 1 field(s) are empty"
+        " ('30,0.716,' ends with ',')."
+    )
+    assert "remove the trailing ','" in p.fix
+    # a decimal comma followed by an empty field is still a decimal comma
+    (p,) = problems_of(write(tmp_path, "time [s],absorbance,flag\n30,0,716,\n"))
+    assert "looks like numbers written with a decimal comma" in p.message
+
+
+def test_a_unit_in_round_brackets_gets_the_square_bracket_spelling(tmp_path):
+    (p,) = problems_of(write(tmp_path, "Time (min),Absorbance\n1,0.7\n"))
+    assert p.message == (
+        "unknown column 'time (min)' in the header of a batch table. Did you mean"
+        " 'time [min]'? A unit goes in square brackets."
+    )
+
+
+def test_a_tab_separated_table_is_named_as_such(tmp_path):
+    (p,) = problems_of(write(tmp_path, "time [s]\tabsorbance\n30\t0.7\n"))
+    assert p.where == "t.csv, line 1"
+    assert p.message.startswith("the header is separated by tabs")
+    assert "comma" in p.fix

@@ -215,6 +215,7 @@ class Table:
 
 _HEADER_CELL = re.compile(r"^(?P<name>[^\[\]]*?)\s*(?:\[(?P<unit>[^\[\]]*)\])?\s*$")
 _DECIMAL_COMMA = re.compile(r"^[+-]?\d*,\d+(?:[eE][+-]?\d+)?$")
+_ROUND_BRACKETS = re.compile(r"^(?P<name>.+?)\s*\((?P<unit>[^()]*)\)$")
 
 
 class _Collector:
@@ -302,8 +303,15 @@ def _parse_header(cells: list[str], schema: TableSchema, line: int,
         unit = (m.group("unit") or "").strip() if m and m.group("unit") is not None else ""
         has_brackets = bool(m and m.group("unit") is not None)
         if name not in allowed:
-            close = difflib.get_close_matches(name, allowed, n=1, cutoff=0.6)
-            hint = f" Did you mean '{close[0]}'?" if close else ""
+            rb = _ROUND_BRACKETS.match(name)
+            if rb and rb.group("name").strip() in allowed:  # "time (min)": a unit in ( )
+                base = rb.group("name").strip()
+                close = [base]
+                hint = (f" Did you mean '{base} [{rb.group('unit').strip()}]'? A unit goes in"
+                        " square brackets.")
+            else:
+                close = difflib.get_close_matches(name, allowed, n=1, cutoff=0.6)
+                hint = f" Did you mean '{close[0]}'?" if close else ""
             suggested.update(close)
             out.file(f"unknown column '{name}' in the header of a {schema.kind} table.{hint}",
                      "use the column names " + ", ".join(repr(a) for a in allowed)
@@ -459,6 +467,12 @@ def read_table(path: str | Path, kind: str, *, where: str | None = None,
         raise ExperimentError(out.problems)
     header_line, header_text = content[0]
     delimiter = ";" if header_text.count(";") > header_text.count(",") else ","
+    if "\t" in header_text and "," not in header_text and ";" not in header_text:
+        out.file("the header is separated by tabs; a table is read with a comma or a semicolon"
+                 " between the columns.",
+                 "save the table as CSV (comma-separated), or replace the tabs by commas.",
+                 line=header_line)
+        raise ExperimentError(out.problems)
     try:
         header = next(csv.reader([header_text], delimiter=delimiter, strict=True))
     except csv.Error as exc:
@@ -481,12 +495,21 @@ def read_table(path: str | Path, kind: str, *, where: str | None = None,
                      "check the quotes; a quoted text must end on the same line.", line=line)
             continue
         if len(cells) > len(names):
-            if delimiter == "," and re.search(r"\d,\d", row_text):
+            extra = cells[len(names):]
+            decimal_point = re.search(r"\d\.\d", row_text)
+            if delimiter == "," and re.search(r"\d,\d", row_text) and not decimal_point:
                 out.file(f"the row has {len(cells)} fields but the header has {len(names)}"
                          f" columns; '{row_text.strip()}' looks like numbers written with a"
                          " decimal comma.",
                          "write decimal points (0.812, not 0,812), or use ';' as the"
                          " delimiter in every row.", line=line)
+            elif not any(c.strip() for c in extra):
+                out.file(f"the row has {len(cells)} fields but the header has {len(names)}"
+                         f" columns; the last {len(extra)} field(s) are empty"
+                         f" ('{row_text.strip()}' ends with '{delimiter}').",
+                         f"remove the trailing '{delimiter}' from the row (a spreadsheet"
+                         " writes them for formatted empty cells), or name the column in the"
+                         " header.", line=line)
             else:
                 out.file(f"the row has {len(cells)} fields but the header has {len(names)}"
                          f" columns ('{row_text.strip()}').",
