@@ -131,3 +131,112 @@ def test_version():
         [sys.executable, "-m", "uqreport", "--version"], capture_output=True, text=True
     )
     assert proc.returncode == 0 and proc.stdout.startswith("uqreport ")
+
+
+def test_out_that_is_a_file_exits_2_before_the_analysis(tmp_path, monkeypatch, capsys):
+    """--out naming a file was an internal error (FileExistsError, exit 1), and only after the
+    whole analysis had run."""
+    import uqreport.analysis
+
+    def never(*args, **kwargs):
+        raise AssertionError("the analysis ran before --out was checked")
+
+    monkeypatch.setattr(uqreport.analysis, "analyze", never)
+    target = tmp_path / "results.txt"
+    target.write_text("mine")
+    for argv in (
+        ["analyze", str(DATA / "good"), "--out", str(target)],
+        ["plan", str(DATA / "good"), "--out", str(target)],
+        ["analyze", str(DATA / "good"), "--out", str(target / "sub")],
+    ):
+        assert cli.main(argv) == 2
+        err = capsys.readouterr().err
+        assert "Traceback" not in err and "internal error" not in err
+        assert str(target) in err and "Fix: name a folder" in err
+    assert target.read_text() == "mine"
+
+
+def test_debug_is_accepted_after_the_command(monkeypatch, capsys):
+    """The internal-error message says "rerun with --debug"; appending it to the command
+    line used to be a usage error."""
+    import uqreport.analysis
+
+    def boom(*args, **kwargs):
+        raise RuntimeError("simulated failure")
+
+    monkeypatch.setattr(uqreport.analysis, "analyze", boom)
+    for argv in (
+        ["analyze", str(DATA / "good"), "--out", "unused", "--debug"],
+        ["--debug", "analyze", str(DATA / "good"), "--out", "unused"],
+    ):
+        assert cli.main(argv) == 1
+        err = capsys.readouterr().err
+        assert "Traceback" in err and "simulated failure" in err
+    assert cli.main(["check", str(DATA / "good"), "--debug"]) == 0
+
+
+def test_output_piped_into_a_reader_that_stops_is_not_an_internal_error(tmp_path):
+    """`uqreport plan x.toml | head -3` ended in "internal error (BrokenPipeError)", exit 1."""
+    script = (
+        "import sys, uqreport.cli as c\n"
+        "import uqreport.experiment as e\n"
+        "def many(path):\n"
+        "    for _ in range(100000):\n"
+        "        print('a line of output')\n"
+        "e.check_experiment = many\n"
+        "sys.exit(c.main(['check', 'x.toml']))\n"
+    )
+    proc = subprocess.Popen(
+        [sys.executable, "-c", script], stdout=subprocess.PIPE, stderr=subprocess.PIPE
+    )
+    proc.stdout.readline()
+    proc.stdout.close()  # the reader goes away, as head does
+    err = proc.stderr.read().decode()
+    assert proc.wait() == 0
+    assert "internal error" not in err and "Traceback" not in err
+
+
+def test_plan_table_states_U_on_one_scale():
+    """U = 0.0060 was printed 0.006 and the new U 0.006 beside 0.0038 (format .2g); the
+    improvement text was cut at 58 characters."""
+    from types import SimpleNamespace as NS
+
+    desc = "taking as many readings again per run over the same time span"
+    cases = [
+        NS(group="temperature", description="holding the bath to ±0.1 K", U_new=0.0038,
+           reduction_percent=37.6),
+        NS(group="absorbance noise", description=desc, U_new=0.005986, reduction_percent=0.2),
+    ]
+    qp = NS(unit="L/(mol*s)", U=0.006025, k=1.96, cases=cases, verdict="(verdict)")
+    plan = NS(quantities={"second_order_rate_constant": qp}, shares_check={}, schedule=[])
+    res = NS(plan=plan, experiment=NS(study=NS(title="t")))
+    text = cli._plan_table(res)
+    assert "second_order_rate_constant: U = 0.0060 L mol⁻¹ s⁻¹ (coverage factor 1.96)" in text
+    assert desc in text
+    rows = [ln.split() for ln in text.splitlines() if ln.strip().startswith(("1 ", "2 "))]
+    assert [r[-2] for r in rows] == ["0.0038", "0.0060"]
+
+
+def test_summary_line_rounds_as_the_report_does():
+    """The summary printed "0.1803 ..., U = 0.006" (value .4g, U .2g): the estimate had more
+    decimals than U and U lost its second digit; the report says 0.1803, U = 0.0060."""
+    import datetime
+    from types import SimpleNamespace as NS
+
+    q = "second_order_rate_constant"
+    est = NS(unit="L/(mol*s)", value=0.1803283, U=0.0060249, k=1.9600228, coverage=0.95)
+    chain = NS(
+        linear=NS(estimate=lambda name: est),
+        montecarlo=NS(estimate=lambda name: NS(low=0.1746858, high=0.1861568)),
+        validation={q: NS(validated=False)},
+        posterior=None,
+        budgets={q: NS(top=lambda n: [NS(input="temperature", share=0.687)])},
+    )
+    study = NS(title="t", operator="o", date=datetime.date(2025, 2, 11))
+    res = NS(experiment=NS(study=study), headline=[("batch", q)], chains={"batch": chain},
+             all_findings=[])
+    text = cli._summary(res, Path("out"))
+    assert (
+        "second_order_rate_constant = 0.1803 L mol⁻¹ s⁻¹, U = 0.0060 L mol⁻¹ s⁻¹"
+        " (coverage factor 1.96, 95 % coverage); Monte Carlo [0.1747, 0.1862], not validated"
+    ) in text

@@ -16,6 +16,7 @@ from pathlib import Path
 
 from . import __version__
 from .errors import ExperimentError, InputError
+from .report.fmt import scale_for
 from .units import pretty_unit
 
 __all__ = ["main"]
@@ -61,6 +62,15 @@ def _parser() -> argparse.ArgumentParser:
     )
     p.add_argument("--version", action="version", version=f"uqreport {__version__}")
     p.add_argument("--debug", action="store_true", help="show a traceback on internal errors")
+    # --debug also after the command ("uqreport analyze x.toml --out o --debug"), where the
+    # internal-error message sends users; SUPPRESS keeps the top-level value when absent
+    common = argparse.ArgumentParser(add_help=False)
+    common.add_argument(
+        "--debug",
+        action="store_true",
+        default=argparse.SUPPRESS,
+        help="show a traceback on internal errors",
+    )
     sub = p.add_subparsers(dest="command", metavar="COMMAND")
     sub.required = True
 
@@ -96,13 +106,14 @@ def _parser() -> argparse.ArgumentParser:
         sp.add_argument(
             "--save-draws",
             action="store_true",
-            help="write the posterior draws (posterior.npz; posterior.nc too with ArviZ)",
+            help="write the posterior draws (posterior_<chain>.npz; .nc too with ArviZ)",
         )
         sp.add_argument("--no-report", action="store_true", help="do not write report.pdf")
         sp.add_argument("--quiet", action="store_true", help="print nothing but errors")
 
     d = sub.add_parser(
         "demo",
+        parents=[common],
         help="simulate the invented demo study and analyse it",
         description="Write an invented demo study (experiment.toml, tables, truth.json) into"
         " --out, analyse it, and write the results beside it.",
@@ -113,6 +124,7 @@ def _parser() -> argparse.ArgumentParser:
 
     a = sub.add_parser(
         "analyze",
+        parents=[common],
         help="analyse an experiment file",
         description="Check and analyse EXPERIMENT; write results.json, budget.csv and fits.csv"
         " into --out.",
@@ -123,6 +135,7 @@ def _parser() -> argparse.ArgumentParser:
 
     pl = sub.add_parser(
         "plan",
+        parents=[common],
         help="rank what to improve next and what it would buy",
         description="Analyse EXPERIMENT by linear propagation and print the improvement plan:"
         " for each headline quantity the what-if cases ranked by the reduction of U, the"
@@ -137,11 +150,34 @@ def _parser() -> argparse.ArgumentParser:
 
     c = sub.add_parser(
         "check",
+        parents=[common],
         help="validate an experiment file and its tables without analysing",
         description="Check EXPERIMENT and every table it names; list all problems at once.",
     )
     c.add_argument("experiment", type=Path, help="the experiment file (TOML) or its folder")
     return p
+
+
+def _check_out(out: Path) -> None:
+    """Refuse an --out that cannot be a folder, before the analysis spends its time."""
+    if out.exists() and not out.is_dir():
+        raise InputError(
+            f"--out {out} is a file, not a folder. Fix: name a folder for the results (it is"
+            " created when it does not exist)."
+        )
+    parent = out
+    while not parent.exists():
+        parent = parent.parent
+    if not parent.is_dir():
+        raise InputError(
+            f"--out {out}: {parent} is a file, so the folder cannot be created there. Fix: name"
+            " a folder path."
+        )
+    if not os.access(parent, os.W_OK | os.X_OK):
+        raise InputError(
+            f"--out {out}: the folder {parent} is not writable. Fix: name a folder you can"
+            " write to."
+        )
 
 
 def _settings(args: argparse.Namespace):
@@ -175,20 +211,23 @@ def _summary(res, out: Path, *, report: bool = True) -> str:
         ch = res.chains[cname]
         est = ch.linear.estimate(q)
         unit = "" if est.unit == "1" else f" {pretty_unit(est.unit)}"
+        # the report's rounding (GUM 7.2.6): U to two significant digits, the estimate and
+        # the intervals to the same decimal place
+        sc = scale_for(est.value, est.U)
         line = (
-            f"  {q} = {est.value:.4g}{unit}, U = {est.U:.2g}{unit}"
-            f" (coverage factor {est.k:.3g}, {100 * est.coverage:g} % coverage)"
+            f"  {q} = {sc.with_suffix(est.value)}{unit}, U = {sc.with_suffix(est.U)}{unit}"
+            f" (coverage factor {est.k:.2f}, {100 * est.coverage:g} % coverage)"
         )
         if ch.montecarlo is not None:
             mc = ch.montecarlo.estimate(q)
             v = ch.validation[q]
             line += (
-                f"; Monte Carlo [{mc.low:.4g}, {mc.high:.4g}],"
+                f"; Monte Carlo [{sc.fmt(mc.low)}, {sc.fmt(mc.high)}]{sc.suffix},"
                 f" {'validated' if v.validated else 'not validated'}"
             )
         if ch.posterior is not None and q in ch.posterior.quantities:
             bq = ch.posterior.quantities[q]
-            line += f"; Bayesian [{bq.low:.4g}, {bq.high:.4g}]"
+            line += f"; Bayesian [{sc.fmt(bq.low)}, {sc.fmt(bq.high)}]{sc.suffix}"
             if not bq.converged:
                 line += " (not converged)"
         lines.append(line)
@@ -210,12 +249,17 @@ def _plan_table(res) -> str:
     lines = [f"Improvement plan: {res.experiment.study.title}"]
     for q, qp in plan.quantities.items():
         unit = "" if qp.unit == "1" else f" {pretty_unit(qp.unit)}"
+        sc = scale_for(qp.U, qp.U)  # the new U on the scale of the present one
+        width = max([len("improvement"), *(len(c.description) for c in qp.cases[:10])])
         lines.append("")
-        lines.append(f"{q}: U = {qp.U:.2g}{unit} (coverage factor {qp.k:.3g})")
-        lines.append(f"  {'rank':>4}  {'group':<22} {'improvement':<58} {'U new':>9} {'gain':>6}")
+        lines.append(f"{q}: U = {sc.with_suffix(qp.U)}{unit} (coverage factor {qp.k:.2f})")
+        new_head = f"U new{sc.suffix}"
+        lines.append(
+            f"  {'rank':>4}  {'group':<22} {'improvement':<{width}} {new_head:>9} {'gain':>6}"
+        )
         for i, c in enumerate(qp.cases[:10], start=1):
             lines.append(
-                f"  {i:>4}  {c.group:<22} {c.description[:58]:<58} {c.U_new:>9.2g}"
+                f"  {i:>4}  {c.group:<22} {c.description:<{width}} {sc.fmt(c.U_new):>9}"
                 f" {c.reduction_percent:>5.0f}%"
             )
         lines.append(f"  {qp.verdict}")
@@ -229,10 +273,13 @@ def _plan_table(res) -> str:
             )
     if plan.schedule:
         lines.append("")
-        lines.append("Sampling schedule (equally spaced readings; u(k') from the fit alone):")
         lines.append(
-            f"  {'run':<10} {'n':>3} {'spacing now':>12} {'to half-lives':>14} {'u(k) now':>10}"
-            f" {'best spacing':>13} {'to half-lives':>14} {'u(k) best':>10} {'gain':>6}"
+            "Sampling schedule (equally spaced readings; u(k') in 1/s, from the fit alone):"
+        )
+        u_now, u_best = "u(k') now", "u(k') best"
+        lines.append(
+            f"  {'run':<10} {'n':>3} {'spacing now':>12} {'to half-lives':>14} {u_now:>10}"
+            f" {'best spacing':>13} {'to half-lives':>14} {u_best:>10} {'gain':>6}"
         )
         for s in plan.schedule:
             lines.append(
@@ -253,6 +300,8 @@ def _plan(args: argparse.Namespace, argv: list[str]) -> int:
         seed=DEFAULT_SEED if args.seed is None else args.seed,
         montecarlo=False,
     )
+    if args.out is not None:
+        _check_out(args.out)
     res = analyze(args.experiment, settings=settings)
     if res.plan is None:
         raise InputError(f"{args.experiment}: there is nothing to plan (no analysed chain).")
@@ -267,6 +316,7 @@ def _analyze(exp_path: Path, out: Path, args: argparse.Namespace, argv: list[str
     from .analysis import analyze
     from .results import parameter_label, results_dict, write_results
 
+    _check_out(out)
     res = analyze(exp_path, settings=_settings(args))
     doc = results_dict(res, command_line=["uqreport", *argv])
     write_results(res, out, doc=doc)
@@ -300,8 +350,7 @@ def _demo(args: argparse.Namespace, argv: list[str]) -> int:
     from .demo import write_demo
 
     out: Path = args.out
-    if out.exists() and not out.is_dir():
-        raise InputError(f"--out {out} exists and is not a folder. Fix: name a folder.")
+    _check_out(out)
     if out.is_dir() and any(out.iterdir()) and not args.force:
         truth = out / "truth.json"
         ok = False
@@ -349,6 +398,14 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("uqreport: interrupted", file=sys.stderr)
         return EXIT_INTERNAL
+    except BrokenPipeError:
+        # the reader of the output went away ("uqreport plan x.toml | head"): not an error;
+        # send what is still buffered nowhere so that the exit does not fail again
+        try:
+            os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        except (OSError, ValueError, AttributeError):
+            pass
+        return EXIT_OK
     except Exception as exc:  # an internal error: say so plainly, traceback on request
         if args.debug:
             traceback.print_exc()
