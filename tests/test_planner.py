@@ -133,3 +133,24 @@ def test_plan_in_results_and_cli(tmp_path, capsys):
     } <= set(rec["cases"][0])
     assert plan["schedule"] and "gain_percent" in plan["schedule"][0]
     assert "only_share" in plan["shares_check"]["second_order_rate_constant"][0]
+
+
+def test_class_a_case_is_stated_at_the_analysis_coverage(tmp_path):
+    """At 99 % coverage the "class A glassware" case must give the expanded uncertainty of the
+    study re-analysed with class A glassware at 99 % as well (U = k_p u_c for the same p,
+    GUM 6.2-6.3): comparing a 95 % U with the actual 99 % U would show a gain that is only
+    the change of coverage factor."""
+    path = demo_study(tmp_path / "demo", seed=7)
+    class_a = analyze(path, settings=Settings(coverage=0.99, montecarlo=False, mcmc=False))
+    text = path.read_text(encoding="utf-8")
+    old = 'capacity = { value = 50, unit = "mL" }\nclass = "A"'
+    assert old in text
+    path.write_text(text.replace(old, old[:-3] + '"B"'), encoding="utf-8")
+    res = analyze(path, settings=Settings(coverage=0.99, montecarlo=False, mcmc=False))
+    name = "hydroxide_concentration/r1"  # the cylinder's scale error enters [OH] directly
+    plan = plan_study(res, targets=(name,), share_draws=200)
+    qp = plan.quantities[name]
+    case = next(c for c in qp.cases if c.case == "class A glassware")
+    want = class_a.chains["batch"].linear.estimate(name).U
+    assert qp.U > want
+    assert case.U_new == pytest.approx(want, rel=1e-9)

@@ -220,8 +220,10 @@ def _with_runs(exp: Experiment, runs) -> Experiment:
     return replace(exp, batch=replace(exp.batch, runs=tuple(runs), noise_source="spec"))
 
 
-def _analyse_linear(exp: Experiment) -> LinearResult:
-    return propagate_linear(build_batch_chain(exp).model)
+def _analyse_linear(exp: Experiment, coverage: float) -> LinearResult:
+    """The linear result of ``exp`` at the coverage probability of the actual analysis (its
+    U is compared with the actual U, so both must be for the same coverage)."""
+    return propagate_linear(build_batch_chain(exp).model, coverage=coverage)
 
 
 def _U(lin: LinearResult, name: str) -> float:
@@ -397,7 +399,7 @@ def _batch_cases(
                 continue
             gw[gid] = replace(g, glass_class="A", tolerance=tol)
     if gw:
-        new = _analyse_linear(replace(exp, glassware={**exp.glassware, **gw}))
+        new = _analyse_linear(replace(exp, glassware={**exp.glassware, **gw}), lin.coverage)
         add(
             GROUPS["glassware"],
             "class A glassware",
@@ -407,10 +409,10 @@ def _batch_cases(
         )
 
     # designs with other data: scale the actual U by the ratio of simulated designs
-    base = _analyse_linear(_with_runs(exp, _synthetic_runs(exp, fits)))
+    base = _analyse_linear(_with_runs(exp, _synthetic_runs(exp, fits)), lin.coverage)
 
     def simulated(runs, group: str, case: str, description: str, method: str = "simulated"):
-        new = _analyse_linear(_with_runs(exp, runs))
+        new = _analyse_linear(_with_runs(exp, runs), lin.coverage)
         add(
             group, case, description, {t: U0[t] * _U(new, t) / _U(base, t) for t in targets}, method
         )
