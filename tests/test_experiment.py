@@ -733,3 +733,42 @@ def test_docs_python_example_runs(tmp_path, monkeypatch):
     namespace: dict = {}
     exec(compile(code, str(DOCS), "exec"), namespace)  # the documented snippet itself
     assert namespace["exp"].quantity("solutions.oh_stock.concentration").value == 0.2
+
+
+def test_zero_reading_noise_is_refused_at_the_check(tmp_path):
+    """noise_sd = 0 passed the check and the analysis then stopped on "weights must be finite
+    and >= 0." (no file, no key, no fix)."""
+    study = study_copy(tmp_path, ("noise_sd = 0.002", "noise_sd = 0"))
+    p = one_problem(study, "experiment.toml: spectrophotometer.noise_sd.value")
+    assert p.message == "value 0 is out of range: it must be > 0."
+
+
+def test_final_absorbance_in_the_range_of_readings(tmp_path):
+    """final_absorbance = 12 passed the check and the analysis ended in an internal error
+    (ZeroDivisionError); the run is not also told that it lacks a final absorbance."""
+    study = study_copy(
+        tmp_path,
+        ('baseline = "fitted"', 'baseline = "measured"'),
+        ('dye_volume = { value = 25, unit = "mL", glassware = "cyl25" }',
+         'dye_volume = { value = 25, unit = "mL", glassware = "cyl25" }\n'
+         "final_absorbance = { value = 12, u = 0.002 }"),
+    )
+    found = [str(p) for p in problems(study) if "runs[r1]" in p.where]
+    assert found == [
+        "experiment.toml: batch.runs[r1].final_absorbance.value: value 12 is out of range: it"
+        " must be >= -0.5 and <= 5. Fix: check the number and its unit."
+    ]
+
+
+def test_every_observation_is_checked_against_the_range():
+    """A negative concentration among the observations passed when the mean was positive."""
+    got: list[str] = []
+    spec = parse_quantity({"unit": "mmol/L", "observations": [501, -498, 500, 503]},
+                          key="solutions.s.concentration", dimension="concentration",
+                          mode="uncertain", report=lambda *a: got.append(" ".join(a)),
+                          low=0.0, low_open=True)
+    assert spec is None
+    assert got == [
+        "solutions.s.concentration.observations observation 2, -498 mmol/L, is out of range:"
+        " each must be > 0 mol/L. check the number and its unit."
+    ]

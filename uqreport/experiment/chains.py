@@ -185,7 +185,9 @@ BATCH_RUN = RecordSpec((
     Field("water_volume", "uncertain", "volume of water", dimension="volume", low=0.0,
           glassware_ok=True),
     _conc("dye_concentration", "initial dye in the mixture"),
-    Field("final_absorbance", "uncertain", "measured final absorbance", dimension="absorbance"),
+    # the range of a table's absorbance column (a reading of the same instrument)
+    Field("final_absorbance", "uncertain", "measured final absorbance", dimension="absorbance",
+          low=-0.5, high=5.0),
     *TIMING_FIELDS,
     _note(),
 ), _build_batch_run, name_field="name")

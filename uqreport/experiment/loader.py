@@ -272,7 +272,9 @@ def _check_batch(ctx: Context) -> None:
     params = 1 + (batch.baseline == "fitted") + (batch.initial == "free")
     chem = ctx.sections.get("chemistry")
     for run in batch.runs:
-        if batch.baseline == "measured" and run.final_absorbance is None:
+        reported = ctx.where(f"{run.key}.final_absorbance")
+        given_but_bad = any(p.where.startswith(reported) for p in ctx.problems)
+        if batch.baseline == "measured" and run.final_absorbance is None and not given_but_bad:
             ctx.add(f"{run.key}.final_absorbance", "baseline = 'measured' needs each run's"
                     " final absorbance.", "add final_absorbance = { value = ..., u = ... } to"
                     " the run, or use baseline = 'fitted'.")

@@ -446,17 +446,32 @@ def parse_quantity(
             u = standard_uncertainty_from_half_width(half, dist)
         elif form == "expanded":
             u = convert_scale(float(raw["expanded"]), unit_text, dimension) / float(raw["k"])
-    bad_low = low is not None and (value_int <= low if low_open else value_int < low)
-    bad_high = high is not None and value_int > high
-    if bad_low or bad_high:
-        shown = f"{raw.get('value', value_int):g} {unit_text}" if observations is None else (
-            f"mean {value_int:g} {internal_unit(dimension)}")
-        iu = "" if unitless else f" {internal_unit(dimension)}"
-        bounds = []
-        if low is not None:
-            bounds.append(f"{'>' if low_open else '>='} {low:g}{iu}")
-        if high is not None:
-            bounds.append(f"<= {high:g}{iu}")
+    def out_of_range(x: float) -> bool:
+        return (low is not None and (x <= low if low_open else x < low)) or (
+            high is not None and x > high)
+
+    iu = "" if unitless else f" {internal_unit(dimension)}"
+    bounds = []
+    if low is not None:
+        bounds.append(f"{'>' if low_open else '>='} {low:g}{iu}")
+    if high is not None:
+        bounds.append(f"<= {high:g}{iu}")
+    unit_sp = "" if unit_text == "1" else f" {unit_text}"
+    if observations is not None:
+        # every observation is a value of the quantity: a negative concentration among
+        # them is a typo even when the mean is in range
+        bad = [(i, x) for i, x in enumerate(observations)
+               if out_of_range(convert_value(x, unit_text, dimension))]
+        if bad:
+            i, x = bad[0]
+            more = f" (and {len(bad) - 1} more)" if len(bad) > 1 else ""
+            report(f"{key}.observations", f"observation {i + 1}, {x:g}{unit_sp}{more}, is out"
+                   f" of range: each must be {' and '.join(bounds)}.",
+                   "check the number and its unit.")
+            return None
+    if out_of_range(value_int):
+        shown = f"{raw.get('value', value_int):g}{unit_sp}" if observations is None else (
+            f"mean {value_int:g}{iu}")
         report(f"{key}.value", f"value {shown} is out of range: it must be"
                f" {' and '.join(bounds)}.", "check the number and its unit.")
         return None

@@ -191,8 +191,9 @@ SPECTROPHOTOMETER = register_section(Field("spectrophotometer", "record", "the i
     when_absent="empty", record=RecordSpec((
         Field("wavelength", "plain", "wavelength set on the instrument", dimension="wavelength",
               low=0.0, low_open=True),
+        # > 0: the fits weight each reading by 1/SD^2 (a zero SD gives infinite weights)
         Field("noise_sd", "plain", "SD of one reading", dimension="absorbance",
-              default=D.NOISE_SD, low=0.0),
+              default=D.NOISE_SD, low=0.0, low_open=True),
         Field("noise_relative", "plain", "proportional part of the SD",
               dimension="dimensionless", default=D.NOISE_RELATIVE, low=0.0),
         Field("photometric_accuracy", "offset", "photometric bias", dimension="absorbance",
