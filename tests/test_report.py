@@ -638,3 +638,79 @@ def test_summary_prints_only_numbers_of_results_json(full):
     allowed |= {str(i) for i in range(1, len(pages) + 1)}
     found = set(num.findall(pages[0]))
     assert found <= allowed, sorted(found - allowed)
+
+
+def test_small_negative_share():
+    """A tiny negative share printed "-<0.1 %"."""
+    assert fmt.fmt_percent(-0.0002) == "> −0.1 %"
+    assert fmt.fmt_percent(0.0002) == "<0.1 %"
+
+
+def test_input_estimate_keeps_the_decimals_its_u_needs():
+    """24.3 degC = 297.45 K with u = 0.17 K printed as 297.4 K in the inputs table (four
+    significant digits), while the summary says 297.45 K."""
+    from uqreport.report.sections.inputs import input_rows
+
+    items = [
+        {"name": "temperature/study", "value": 297.45, "u": 0.1732, "unit": "K", "dof": "inf",
+         "distribution": "rectangular", "half_width": 0.3, "type": "B", "group": "temperature",
+         "source": "", "block": None},
+        {"name": "concentration/s", "value": 0.5005, "u": 0.00104, "unit": "mol/L", "dof": 3.0,
+         "distribution": "normal", "half_width": None, "type": "A", "group": "c",
+         "source": "", "block": None},
+        {"name": "activation_energy", "value": 60570.0, "u": 2000.0, "unit": "J/mol",
+         "dof": "inf", "distribution": "normal", "half_width": None, "type": "B", "group": "e",
+         "source": "", "block": None},
+    ]
+    rows, _ = input_rows(items)
+    assert [r[1] for r in rows] == ["297.45", "0.5005", "60570"]
+
+
+def test_a_baseline_the_fit_held_fixed_is_not_shown_as_exact():
+    """A measured baseline printed "0.01200 ± 0.00000" in the table of fitted values."""
+    from uqreport.report.sections.batch import _fitted_pm
+
+    assert _fitted_pm(0.012, 0.0) == "0.012 (not fitted)"
+    assert _fitted_pm(0.7664, 0.0038) == "0.7664 ± 0.0038"
+
+
+def test_linearity_row_names_the_headline_quantities_not_validated():
+    """The assumptions table said "7 of 13 quantities validated" and "no finding" while the
+    summary said k was not validated: a reader took the row for a pass."""
+    from uqreport.report.registry import ReportContext
+    from uqreport.report.sections.assumptions import _general_rows
+
+    def rec(validated):
+        return {"montecarlo": {"validated": validated}, "linear": {}}
+
+    doc = {
+        "chains": {"batch": {"headline": ["second_order_rate_constant", "hydroxide_order"]}},
+        "quantities": {
+            "second_order_rate_constant": rec(False),
+            "hydroxide_order": rec(True),
+            "pseudo_rate_constant/r1": rec(False),
+        },
+    }
+    ((_assumption, what, _checks),) = _general_rows(ReportContext(result=None, doc=doc))
+    assert str(what) == (
+        "JCGM 101 validation: 1 of 3 quantities validated; not validated among the headline"
+        " quantities: k (state their Monte Carlo intervals)"
+    )
+
+
+def test_posterior_rows_of_one_kind_share_a_power_of_ten():
+    """k'(r1) came out in 10⁻³ s⁻¹ and k'(r3) in s⁻¹ in the same column."""
+    from uqreport.report.registry import ReportContext
+    from uqreport.report.sections.bayes import _posterior_table
+
+    def rec(median, sd):
+        return {"chain": "batch", "unit": "1/s", "bayes": {
+            "median": median, "sd": sd, "low": median - 2 * sd, "high": median + 2 * sd,
+            "low_68": median - sd, "high_68": median + sd, "hdi_low": median - 2 * sd,
+            "hdi_high": median + 2 * sd, "ess": 1500, "tau": 20, "converged": True}}
+
+    doc = {"quantities": {"pseudo_rate_constant/r1": rec(0.003619, 2.7e-5),
+                          "pseudo_rate_constant/r3": rec(0.01082, 1.4e-4)}}
+    table = _posterior_table(ReportContext(result=None, doc=doc), "batch")
+    cells = [[str(getattr(c, "text", c)) for c in row] for row in table._cellvalues[1:]]
+    assert [(r[1], r[2]) for r in cells] == [("× 10⁻³ s⁻¹", "3.619"), ("× 10⁻³ s⁻¹", "10.82")]

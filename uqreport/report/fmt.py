@@ -193,7 +193,8 @@ def column_exponent(values: Any) -> int:
 
 
 def fmt_percent(share: Any, decimals: int = 1) -> str:
-    """A share (0..1) as a percentage: "95.7 %"; tiny non-zero shares as "<0.1 %"."""
+    """A share (0..1) as a percentage: "95.7 %"; tiny non-zero shares as "<0.1 %" (or
+    "> −0.1 %" when negative)."""
     v = as_float(share)
     if math.isnan(v):
         return "–"
@@ -201,8 +202,8 @@ def fmt_percent(share: Any, decimals: int = 1) -> str:
         v = 0.0
     p = 100.0 * v
     lim = 0.5 * 10.0**-decimals
-    if 0 < abs(p) < lim:
-        return f"<{10.0**-decimals:g} %" if p > 0 else f"-<{10.0**-decimals:g} %"
+    if 0 < abs(p) < lim:  # a tiny negative share (a cross term, rounding) reads "> −0.1 %"
+        return f"<{10.0**-decimals:g} %" if p > 0 else f"> −{10.0**-decimals:g} %"
     return f"{fmt_fixed(p, decimals)} %"
 
 

@@ -123,10 +123,22 @@ def _general_rows(ctx: ReportContext) -> list[AssumptionRow]:
     if not mc:
         return []
     n_val = sum(1 for m in mc if m.get("validated"))
+    what = pdf.esc(f"JCGM 101 validation: {n_val} of {len(mc)} quantities validated")
+    # "no finding" beside a count alone read as if the headline results were validated
+    failed = [
+        fmt.quantity_label(n).symbol_markup
+        for _c, n in fmt.headline_quantities(ctx.doc)
+        if q.get(n, {}).get("montecarlo") and not q[n]["montecarlo"].get("validated")
+    ]
+    if failed:
+        what += (
+            "; not validated among the headline quantities: " + ", ".join(failed)
+            + " (state their Monte Carlo intervals)"
+        )
     return [
         (
             "The model is linear enough for the GUM's linear propagation",
-            f"JCGM 101 validation: {n_val} of {len(mc)} quantities validated",
+            pdf.Markup(what),
             ("Monte Carlo",),
         )
     ]

@@ -26,6 +26,15 @@ def _u(cov: Any, i: int) -> float:
         return math.nan
 
 
+def _fitted_pm(value: Any, u: float) -> str:
+    """"0.7664 ± 0.0038", or "0.012 (not fitted)" for a parameter the fit held fixed (a
+    measured or zero baseline, A₀ from the concentration): its u from the fit is 0, and
+    "0.01200 ± 0.00000" would read as an exact measurement."""
+    if u == 0.0:
+        return f"{fmt.fmt_sig(value, 3, trim=True)} (not fitted)"
+    return fmt.fmt_pm(value, u)
+
+
 def _fit_tables(ctx: ReportContext, fits: list[Mapping[str, Any]]) -> list:
     e_rate = fmt.column_exponent([f.get("rate") for f in fits])
     rows = []
@@ -36,8 +45,8 @@ def _fit_tables(ctx: ReportContext, fits: list[Mapping[str, Any]]) -> list:
                 str(f["run"]),
                 str(f.get("table", "")),
                 f"{f.get('used', '')} of {f.get('readings', '')}",
-                fmt.fmt_pm(f.get("baseline"), _u(cov, 0)),
-                fmt.fmt_pm(f.get("initial"), _u(cov, 1)),
+                _fitted_pm(f.get("baseline"), _u(cov, 0)),
+                _fitted_pm(f.get("initial"), _u(cov, 1)),
                 fmt.fmt_pm(f.get("rate"), _u(cov, 2), exponent=e_rate if e_rate else None),
                 f"{fmt.fmt_sig(f.get('chi2'), 3)} / {f.get('dof', '–')}",
             ]
@@ -100,7 +109,10 @@ def _fit_tables(ctx: ReportContext, fits: list[Mapping[str, Any]]) -> list:
             "Fitted parameters (u from the fit alone: the readings' noise)",
             t1,
             "A∞ is the baseline reached at long times, A₀ the absorbance at mixing, k′ the"
-            " pseudo-first-order rate constant; χ²/ν uses the noise model's u of each reading.",
+            " pseudo-first-order rate constant; χ²/ν uses the noise model's u of each reading."
+            " 'not fitted': held at the measured final absorbance, at zero, or at the value"
+            " from the dye concentration (settings baseline and initial of [batch]); its"
+            " uncertainty is carried as an input.",
         ),
         *pdf.titled(
             "Checks of each fit",

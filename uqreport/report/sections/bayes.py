@@ -39,12 +39,20 @@ def _settings_text(b: Mapping[str, Any]) -> str:
 
 def _posterior_table(ctx: ReportContext, chain: str) -> Any | None:
     q = ctx.doc.get("quantities", {})
+    # one power of ten per kind of quantity (k' of every run, [OH] of every run), as in the
+    # batch tables: row by row, k'(r1) came out in 10⁻³ s⁻¹ and k'(r3) in s⁻¹
+    family: dict[str, list[Any]] = {}
+    for n, rec in q.items():
+        if rec.get("bayes"):
+            family.setdefault(n.split("/")[0], []).append(rec["bayes"].get("median"))
+    exponents = {f: fmt.column_exponent(v) for f, v in family.items()}
     rows, flag = [], []
     for n, rec in q.items():
         by = rec.get("bayes")
         if not by or rec.get("chain", chain) != chain:
             continue
-        sc = fmt.scale_for(by.get("median"), by.get("sd"))
+        e = exponents.get(n.split("/")[0]) or None
+        sc = fmt.scale_for(by.get("median"), by.get("sd"), exponent=e)
         lab = label_of(ctx.doc, n)
         unit = " ".join(x for x in (sc.suffix.strip(), fmt.unit_text(rec.get("unit"))) if x)
 
@@ -85,7 +93,7 @@ def _posterior_table(ctx: ReportContext, chain: str) -> Any | None:
             "Conv.",
         ],
         rows,
-        widths=[0.8, 0.95, 0.75, 0.8, 1.35, 1.35, 1.35, 0.55, 0.5, 0.55],
+        widths=[0.75, 1.1, 0.75, 0.8, 1.35, 1.35, 1.35, 0.5, 0.45, 0.55],
         align="LLRRRRRRRL",
         highlight=flag,
     )

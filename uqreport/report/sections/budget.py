@@ -214,7 +214,7 @@ def _shares_check(doc: Mapping[str, Any], plan: Mapping[str, Any]) -> list:
                     fmt.fmt_percent(e.get("linear_share")),
                     fmt.fmt_percent(e.get("only_share")),
                     fmt.fmt_percent(e.get("frozen_share")),
-                    "yes" if e.get("flagged") else "",
+                    "yes" if e.get("flagged") else "no",
                 ]
             )
         out += pdf.titled(

@@ -3,6 +3,7 @@ of freedom, type, budget group and source."""
 
 from __future__ import annotations
 
+import math
 from collections.abc import Mapping, Sequence
 from typing import Any
 
@@ -24,7 +25,7 @@ HEADER = (
     "Source",
 )
 # points, adding to the frame width (493 pt)
-WIDTHS = (104, 52, 42, 36, 60, 16, 28, 64, 91)
+WIDTHS = (104, 52, 42, 36, 60, 22, 28, 64, 85)  # ν: room for "3.0", "12"
 ALIGN = "LRRLLRLLL"
 
 
@@ -34,6 +35,22 @@ def _distribution(item: Mapping[str, Any]) -> str:
     if hw is not None:
         d += f" (±{fmt.fmt_sig(hw, 3, trim=True)})"
     return d
+
+
+def _estimate(value: Any, u: Any) -> str:
+    """The estimate to four significant digits, or to the decimal place of u (two
+    significant digits) when u needs more: 297.45 K with u = 0.17 K, not 297.4."""
+    text = fmt.fmt_sig(value, 4, trim=True)
+    v, uu = fmt.as_float(value), fmt.as_float(u)
+    if not (math.isfinite(v) and math.isfinite(uu)) or v == 0.0 or uu <= 0.0 or "×" in text:
+        return text
+    d = fmt.scale_for(v, uu).decimals
+    shown = len(text.partition(".")[2])
+    if d > shown and fmt.scale_for(v, uu).exponent == 0:
+        text = fmt.fmt_fixed(v, d)
+        if "." in text:
+            text = text.rstrip("0").rstrip(".")
+    return text
 
 
 def _joined(values: Sequence[Any]) -> str:
@@ -66,7 +83,7 @@ def input_rows(items: Sequence[Mapping[str, Any]]) -> tuple[list[list[Any]], int
             rows.append(
                 [
                     str(it.get("name", "")),
-                    fmt.fmt_sig(it.get("value"), 4, trim=True),
+                    _estimate(it.get("value"), it.get("u")),
                     fmt.fmt_sig(it.get("u"), 3, trim=True),
                     fmt.unit_text(it.get("unit"), dimensionless="1"),
                     _distribution(it),

@@ -21,14 +21,16 @@ def _intervals_table(ctx: ReportContext, names: list[str]) -> Any:
     q = ctx.doc["quantities"]
     has_mc = any("montecarlo" in q[n] for n in names)
     has_by = any("bayes" in q[n] for n in names)
-    header = ["Quantity", "Unit", "Linear y ± U", "Linear interval"]
-    widths = [1.1, 1.1, 1.3, 1.4]
+    # one linear column (the interval y - U to y + U; y and U are in the summary): with a
+    # second one, four-digit intervals such as [0.1743, 0.1864] wrapped onto two lines
+    header = ["Quantity", "Unit", "Linear, y ± U"]
+    widths = [0.9, 1.1, 1.45]
     if has_mc:
         header += ["Monte Carlo, symmetric", "Monte Carlo, shortest"]
-        widths += [1.4, 1.4]
+        widths += [1.45, 1.45]
     if has_by:
         header += ["Bayesian, equal tails", "Bayesian, highest density"]
-        widths += [1.4, 1.4]
+        widths += [1.45, 1.45]
     rows = []
     for n in names:
         st = fmt.statement(ctx.doc, n)
@@ -39,7 +41,6 @@ def _intervals_table(ctx: ReportContext, names: list[str]) -> Any:
         row: list[Any] = [
             pdf.Markup(st.label.symbol_markup),
             unit,
-            f"{st.value} ± {st.U}",
             _iv(sc, v - U, v + U),
         ]
         if has_mc:
