@@ -152,8 +152,9 @@ def test_temperature_term_follows_arrhenius(demo):
 
 
 def test_same_seed_same_numbers(demo):
-    a = analyze(demo, settings=Settings(draws=2000, seed=11, plan=False, mcmc=False)).chains["batch"]
-    b = analyze(demo, settings=Settings(draws=2000, seed=11, plan=False, mcmc=False)).chains["batch"]
+    settings = Settings(draws=2000, seed=11, plan=False, mcmc=False)
+    a = analyze(demo, settings=settings).chains["batch"]
+    b = analyze(demo, settings=settings).chains["batch"]
     assert np.array_equal(a.montecarlo.values, b.montecarlo.values)
     assert np.array_equal(a.linear.values, b.linear.values)
 
@@ -211,3 +212,32 @@ def test_exact_lag_is_applied_by_the_model(demo):
         assert y[names.index(f"pseudo_rate_constant/{fit.name}")] == pytest.approx(
             fit.params[2], rel=1e-8
         )
+
+
+def test_run_to_run_scatter_is_one_welch_satterthwaite_term(demo):
+    """The run-to-run inputs of all runs come from one estimate tau with R - 1 degrees of
+    freedom, so they are one term of Welch-Satterthwaite (GUM G.4.1, eq. G.2b): with every
+    other input of infinite degrees of freedom, nu_eff = u_c^4 / (V_tau^2 / (R - 1)), V_tau
+    the variance they contribute together.  Counted run by run, nu_eff came out about R
+    times too large."""
+    edit_table(
+        demo.parent / "batch_r2.csv",
+        lambda rows: [[str(float(r[0]) * 1.25), r[1]] for r in rows],
+    )
+    ch = build_batch_chain(load_experiment(demo))
+    assert ch.consistency["tau_relative"] > 0
+    lin = propagate_linear(ch.model)
+    names = lin.inputs.names
+    tau_idx = [i for i, n in enumerate(names) if n.startswith("between_run/")]
+    R = len(tau_idx)
+    assert R == 3
+    others = [i for i in range(len(names)) if i not in tau_idx]
+    assert all(math.isinf(lin.inputs.dof[i]) for i in others)
+    for name in ("second_order_rate_constant", "hydroxide_order"):
+        j = lin.index(name)
+        c = lin.jacobian[j, tau_idx]
+        cov = lin.input_covariance[np.ix_(tau_idx, tau_idx)]
+        v_tau = float(c @ cov @ c)
+        assert lin.dof[j] == pytest.approx(lin.u[j] ** 4 / (v_tau**2 / (R - 1)), rel=1e-9)
+    b = budget(lin, "second_order_rate_constant")
+    assert sum(1 for e in b.entries if e.group == "run-to-run scatter") == 1

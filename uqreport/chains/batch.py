@@ -814,6 +814,8 @@ def build_batch_chain(exp: Experiment) -> BatchChain:
                         kind="A",
                         unit="1",
                         group=GROUPS["between_run"],
+                        # one estimate tau serves every run: one Welch-Satterthwaite term
+                        block="between_run",
                         source=f"random-effects spread of the {R} runs (DerSimonian-Laird)",
                         description=f"relative run-to-run scatter of run {r.name}",
                     )
