@@ -714,3 +714,22 @@ def test_posterior_rows_of_one_kind_share_a_power_of_ten():
     table = _posterior_table(ReportContext(result=None, doc=doc), "batch")
     cells = [[str(getattr(c, "text", c)) for c in row] for row in table._cellvalues[1:]]
     assert [(r[1], r[2]) for r in cells] == [("× 10⁻³ s⁻¹", "3.619"), ("× 10⁻³ s⁻¹", "10.82")]
+
+
+def test_inputs_note_comes_before_its_table():
+    """The note on collapsed blocks followed the inputs table and was left alone on a page of
+    its own when the table filled the page before."""
+    from reportlab.platypus import Paragraph, Table
+
+    from uqreport.report.registry import ReportContext
+    from uqreport.report.sections.inputs import build_inputs
+
+    reading = {"value": 0.5, "u": 0.002, "unit": "1", "distribution": "normal", "dof": "inf",
+               "type": "B", "group": "absorbance noise", "source": "", "block": "absorbance/r1"}
+    items = [{**reading, "name": f"absorbance/r1/line{i}"} for i in (2, 3)]
+    story = build_inputs(ReportContext(result=None, doc={"inputs": {"batch": items}}))
+    kinds = [type(f) for f in story if isinstance(f, (Paragraph, Table))]
+    note = next(i for i, f in enumerate(story)
+                if isinstance(f, Paragraph) and "collapsed" in f.text)
+    table = next(i for i, f in enumerate(story) if isinstance(f, Table))
+    assert note < table, kinds

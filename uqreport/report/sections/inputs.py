@@ -142,7 +142,8 @@ def build_inputs(ctx: ReportContext) -> list:
             out.append(sub(ctx, title))
         else:
             out.append(pdf.para(title, s.h3))
-        out.append(pdf.data_table(HEADER, rows, widths=WIDTHS, align=ALIGN))
+        # the note goes above the table, as the other tables' captions do: below a table
+        # that fills its pages it was left alone on a page of its own
         if n_blocks:
             out.append(
                 pdf.para(
@@ -153,6 +154,7 @@ def build_inputs(ctx: ReportContext) -> list:
                     s.caption,
                 )
             )
+        out.append(pdf.data_table(HEADER, rows, widths=WIDTHS, align=ALIGN))
     return out
 
 
