@@ -5,6 +5,7 @@ from __future__ import annotations
 
 import json
 import math
+import warnings
 
 import numpy as np
 import pytest
@@ -13,8 +14,9 @@ from batch_helpers import demo_study, edit_table, edit_toml, set_batch_option
 from uqreport.analysis import Settings, analyze
 from uqreport.budget import budget
 from uqreport.chains.batch import build_batch_chain
+from uqreport.errors import UqreportWarning
 from uqreport.experiment import load_experiment
-from uqreport.propagation import propagate_linear
+from uqreport.propagation import propagate_linear, propagate_montecarlo
 
 
 @pytest.fixture
@@ -241,3 +243,31 @@ def test_run_to_run_scatter_is_one_welch_satterthwaite_term(demo):
         assert lin.dof[j] == pytest.approx(lin.u[j] ** 4 / (v_tau**2 / (R - 1)), rel=1e-9)
     b = budget(lin, "second_order_rate_constant")
     assert sum(1 for e in b.entries if e.group == "run-to-run scatter") == 1
+
+
+@pytest.mark.parametrize("seed", [8, 10])
+def test_log_linear_fit_keeps_readings_clear_of_the_baseline(tmp_path, seed):
+    """ln(a - a_inf) exists only for a > a_inf.  With a measured baseline (one noise SD above
+    the fitted one) and readings down to the noise floor, tail readings lie within a few
+    noise SDs of it: Monte Carlo lost 30 % of its draws (seed 8) or stopped with an error
+    (seed 10) before such readings were excluded on the fitted curve."""
+    path = demo_study(tmp_path / "demo", seed=seed)
+    text = path.read_text(encoding="utf-8")
+    for fit in build_batch_chain(load_experiment(path)).fits:
+        table = f'table = "batch_{fit.name}.csv"\n'
+        final = f"final_absorbance = {{ value = {fit.params[0] + 0.002:.4f}, u = 0.002 }}\n"
+        text = text.replace(table, table + final)
+    path.write_text(text, encoding="utf-8")
+    set_batch_option(path, "baseline", '"measured"')
+    set_batch_option(path, "method", '"log-linear"')
+    ch = build_batch_chain(load_experiment(path))
+    near = [r for f in ch.fits for r in f.reasons if "of the baseline (log-linear fit)" in r]
+    assert near
+    lin = propagate_linear(ch.model)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UqreportWarning)
+        mc = propagate_montecarlo(ch.model, draws=4000, rng=1)
+    assert mc.failed_draws <= 20  # at most 0.5 % (draws about the observed readings)
+    for run in ("r2", "r3"):
+        j = lin.index(f"pseudo_rate_constant/{run}")
+        assert mc.u[mc.index(f"pseudo_rate_constant/{run}")] == pytest.approx(lin.u[j], rel=0.1)

@@ -44,6 +44,9 @@ __all__ = ["BatchChain", "Finding", "RunFit", "build_batch_chain"]
 
 #: Fewest readings in a run's fit window.
 MIN_READINGS = 5
+#: The log-linear fit keeps readings whose fitted height above the baseline exceeds this many
+#: standard uncertainties (the reading's noise and the baseline's, combined).
+LOG_LINEAR_MARGIN = 5.0
 
 
 @dataclass(frozen=True)
@@ -430,16 +433,35 @@ class _Builder:
         c, a0, k = fit0.params[0]
         fitted_all = (decay_curve(t_nom, c, a0, k) * l_nom) + off_val
         low = used & (fitted_all < floor)
+        for j in np.flatnonzero(low):
+            reasons[j] = f"fitted absorbance below the noise floor ({floor:g} A)"
+        if method == "log-linear":
+            # ln(a - a_inf) exists only above the baseline: a reading whose fitted height above
+            # it is within LOG_LINEAR_MARGIN standard uncertainties (its noise and the
+            # baseline's) falls below it, itself or in Monte Carlo draws (judged on the
+            # fitted curve, as the noise floor is)
+            u_base = (
+                self.reg.by_index(final_idx).u
+                if final_idx is not None
+                else math.sqrt(sum(self.reg.by_index(i).u ** 2 for i in offs))
+            )
+            height = (decay_curve(t_nom, c, a0, k) - c) * l_nom
+            near = used & ~low & (height < LOG_LINEAR_MARGIN * np.sqrt(sig_A**2 + u_base**2))
+            for j in np.flatnonzero(near):
+                reasons[j] = (
+                    f"fitted absorbance within {LOG_LINEAR_MARGIN:g} standard uncertainties of"
+                    " the baseline (log-linear fit)"
+                )
+            low = low | near
         if low.any():
-            for j in np.flatnonzero(low):
-                reasons[j] = f"fitted absorbance below the noise floor ({floor:g} A)"
             used = used & ~low
             if used.sum() < MIN_READINGS:
+                clear = " and clear of the baseline" if method == "log-linear" else ""
                 self.problems.append(
                     Problem(
                         where,
                         f"only {int(used.sum())} readings of {tname} lie above the noise floor"
-                        f" ({floor:g} A; at least {MIN_READINGS} are needed).",
+                        f" ({floor:g} A{clear}; at least {MIN_READINGS} are needed).",
                         "record readings earlier in the decay or more often, or lower"
                         " spectrophotometer.noise_floor if the instrument is quieter.",
                     )
