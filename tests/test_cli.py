@@ -240,3 +240,20 @@ def test_summary_line_rounds_as_the_report_does():
         "second_order_rate_constant = 0.1803 L mol⁻¹ s⁻¹, U = 0.0060 L mol⁻¹ s⁻¹"
         " (coverage factor 1.96, 95 % coverage); Monte Carlo [0.1747, 0.1862], not validated"
     ) in text
+
+
+def test_check_finds_what_the_analysis_would_refuse(tmp_path, capsys):
+    """An excess ratio below 5: `check` said "no problems found", `analyze` then exited 2."""
+    src = tmp_path / "study"
+    src.mkdir()
+    for p in (DATA / "good").iterdir():
+        (src / p.name).write_bytes(p.read_bytes())
+    toml = src / "experiment.toml"
+    text = toml.read_text(encoding="utf-8")
+    old = 'concentration = { value = 0.200, unit = "mol/L", u = 0.001'
+    assert old in text
+    toml.write_text(text.replace(old, old.replace("0.200", "0.0002")), encoding="utf-8")
+    assert cli.main(["check", str(src)]) == 2
+    err = capsys.readouterr().err
+    assert "batch.runs[r1]: the excess ratio [OH]/[dye]0 is 2" in err
+    assert "Traceback" not in err
