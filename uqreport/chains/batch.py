@@ -583,7 +583,8 @@ class _Builder:
         # checks
         c_, a0_, k_ = params
         ll_rate, ll_u = log_linear_rate(tu, au, c_, sig_eff / lu)
-        resid_a = (au - decay_curve(tu, c_, a0_, k_)) * lu
+        fitted_u = decay_curve(tu, c_, a0_, k_)
+        resid_a = (au - fitted_u) * lu
         rt, r1, dt, found = residual_checks(run.name, tu, resid_a / sig_eff)
         self.findings.extend(found)
         if baseline_mode == "fitted":
@@ -642,7 +643,9 @@ class _Builder:
                 offsets=offs,
                 lag=lag_idx,
                 jitter=jitter_idx,
-                weights=w if method == "exponential" else (au - c_) ** 2 * w,
+                # ln(a - a_inf) has u = sigma_a/(a - a_inf) at the fitted curve; weighting by
+                # the readings' own (noisy) values favours the low ones and biases k' low
+                weights=w if method == "exponential" else (fitted_u - c_) ** 2 * w,
                 baseline=baseline_mode,
                 final_absorbance=final_idx,
                 final_pathlength=final_path,
