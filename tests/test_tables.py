@@ -363,3 +363,23 @@ def test_a_tab_separated_table_is_named_as_such(tmp_path):
     assert p.where == "t.csv, line 1"
     assert p.message.startswith("the header is separated by tabs")
     assert "comma" in p.fix
+
+
+def test_a_decimal_comma_in_every_row_is_one_problem(tmp_path):
+    """A spreadsheet saved with ';' and decimal commas gave one problem per cell (30 lines
+    of output for a 30-row run); now one problem names the first cell and the count."""
+    rows = "".join(f"{t};0,{700 - t}\n" for t in (30, 60, 90, 120))
+    (p,) = problems_of(write(tmp_path, "time [s];absorbance\n" + rows))
+    assert p.where == "t.csv, line 2, column 'absorbance'"
+    assert p.message == (
+        "'0,670' is written with a decimal comma. The same holds for 3 more cells of this"
+        " column (lines 3 to 5)."
+    )
+    assert p.fix.startswith("write a decimal point: '0.670'")
+
+
+def test_a_trailing_delimiter_on_every_row_is_one_problem(tmp_path):
+    text = "# c\ntime [s],absorbance\n30,0.7,\n60,0.6,\n# note\n90,0.5,\n"
+    (p,) = problems_of(write(tmp_path, text))
+    assert p.where == "t.csv, line 3"
+    assert p.message.endswith("The same holds for 2 more rows (between lines 4 and 6).")

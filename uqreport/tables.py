@@ -222,6 +222,33 @@ class _Collector:
     def __init__(self, name: str):
         self.name = name
         self.problems: list[Problem] = []
+        # problems of one kind that a spreadsheet repeats on every row (a decimal comma in a
+        # whole column, a trailing delimiter on every row): reported once, with the count
+        self._repeats: dict[tuple[str, ...], tuple[int, str, list[int]]] = {}
+
+    def repeated(self, key: tuple[str, ...], line: int, where: str, message: str,
+                 fix: str, noun: str) -> None:
+        """A problem of kind ``key``: the first is kept, later ones only counted."""
+        if key in self._repeats:
+            self._repeats[key][2].append(line)
+            return
+        self._repeats[key] = (len(self.problems), noun, [])
+        self.problems.append(Problem(where, message, fix))
+
+    def finish(self) -> None:
+        """Fold the counts of repeated problems into their first message."""
+        for index, noun, lines in self._repeats.values():
+            if not lines:
+                continue
+            p = self.problems[index]
+            a, b = lines[0], lines[-1]
+            span = ("line" if a == b else f"lines {a} to" if b - a + 1 == len(lines)
+                    else f"between lines {a} and")
+            span = f"{span} {b}" if a != b else f"line {a}"
+            self.problems[index] = Problem(
+                p.where, f"{p.message} The same holds for {len(lines)} more {noun} ({span}).",
+                p.fix)
+        self._repeats.clear()
 
     def file(self, message: str, fix: str = "", *, line: int | None = None) -> None:
         where = self.name if line is None else f"{self.name}, line {line}"
@@ -363,8 +390,11 @@ def _parse_number(text: str, col: Column, unit: str, line: int,
                  "give the number, or delete the row.")
         return None
     if _DECIMAL_COMMA.match(cell):
-        out.cell(line, col.name, f"{shown} is written with a decimal comma.",
-                 f"write a decimal point: '{cell.replace(',', '.')}'.")
+        out.repeated(("decimal comma", col.name), line,
+                     f"{out.name}, line {line}, column '{col.name}'",
+                     f"{shown} is written with a decimal comma.",
+                     f"write a decimal point: '{cell.replace(',', '.')}' (a spreadsheet: save"
+                     " with '.' as the decimal separator).", "cells of this column")
         return None
     try:
         value = float(cell)
@@ -504,12 +534,13 @@ def read_table(path: str | Path, kind: str, *, where: str | None = None,
                          "write decimal points (0.812, not 0,812), or use ';' as the"
                          " delimiter in every row.", line=line)
             elif not any(c.strip() for c in extra):
-                out.file(f"the row has {len(cells)} fields but the header has {len(names)}"
-                         f" columns; the last {len(extra)} field(s) are empty"
-                         f" ('{row_text.strip()}' ends with '{delimiter}').",
-                         f"remove the trailing '{delimiter}' from the row (a spreadsheet"
-                         " writes them for formatted empty cells), or name the column in the"
-                         " header.", line=line)
+                out.repeated(("trailing", str(len(extra))), line, f"{out.name}, line {line}",
+                             f"the row has {len(cells)} fields but the header has"
+                             f" {len(names)} columns; the last {len(extra)} field(s) are empty"
+                             f" ('{row_text.strip()}' ends with '{delimiter}').",
+                             f"remove the trailing '{delimiter}' from the row (a spreadsheet"
+                             " writes them for formatted empty cells), or name the column in"
+                             " the header.", "rows")
             else:
                 out.file(f"the row has {len(cells)} fields but the header has {len(names)}"
                          f" columns ('{row_text.strip()}').",
@@ -544,6 +575,7 @@ def read_table(path: str | Path, kind: str, *, where: str | None = None,
             frame[col.name] = frame[col.name].astype(float)
     lines_arr = np.asarray(line_numbers, dtype=np.int64)
     _check_order(frame, lines_arr, schema, raw_cells, units, out)
+    out.finish()
     if out.problems:
         raise ExperimentError(out.problems)
     for col in schema.columns:
