@@ -160,6 +160,50 @@ def test_second_order_square_sum_jcgm101_9_4():
     assert res.u[0] == pytest.approx(2.0, rel=1e-6)
 
 
+def test_second_order_mixed_third_derivative_x1_x2_squared_gum_5_1_2():
+    """GUM 5.1.2 Note, eq. (10), by hand for Y = X1 X2^2 (independent normal inputs):
+    c1 = x2^2, c2 = 2 x1 x2; d2f/dx1dx2 = 2 x2, d2f/dx2^2 = 2 x1, d3f/dx1dx2^2 = 2, so the
+    higher-order terms are 6 x2^2 u1^2 u2^2 + 2 x1^2 u2^4.  With the first-order terms they
+    equal the exact variance of X1 X2^2 from the normal moments E[X^4] = m^4 + 6 m^2 s^2 +
+    3 s^4 (standard result) except its sixth-order term 3 u1^2 u2^4."""
+    x1, u1, x2, u2 = 1.5, 0.2, 2.0, 0.3
+    ins = InputSet([InputQuantity("x1", x1, u1), InputQuantity("x2", x2, u2)])
+    model = columns_model(lambda x1, x2: x1 * x2**2, ins, ["y"])
+    res = propagate_linear(model, second_order=True)
+    first = (x2**2 * u1) ** 2 + (2 * x1 * x2 * u2) ** 2
+    higher = 6 * x2**2 * u1**2 * u2**2 + 2 * x1**2 * u2**4
+    assert res.second_order[0] == pytest.approx(higher, rel=1e-6)
+    assert res.u[0] ** 2 == pytest.approx(first + higher, rel=1e-8)
+    exact = (x1**2 + u1**2) * (x2**4 + 6 * x2**2 * u2**2 + 3 * u2**4) - (x1 * (x2**2 + u2**2)) ** 2
+    assert res.u[0] ** 2 == pytest.approx(exact - 3 * u1**2 * u2**4, rel=1e-8)
+
+
+def test_second_order_cube_gum_5_1_2():
+    """GUM 5.1.2 Note, eq. (10), for Y = X^3: c = 3 x^2, d2f = 6 x, d3f = 6, so u^2 =
+    9 x^4 u^2 + (18 x^2 + 18 x^2) u^4; the exact normal variance adds 15 u^6 (normal moments,
+    standard result)."""
+    x, u = 2.0, 0.1
+    ins = InputSet([InputQuantity("x", x, u)])
+    res = propagate_linear(columns_model(lambda x: x**3, ins, ["y"]), second_order=True)
+    # rel 1e-6: the central-difference c = 3 x^2 carries a truncation error h^2 f'''/6
+    assert res.u[0] ** 2 == pytest.approx(9 * x**4 * u**2 + 36 * x**2 * u**4, rel=1e-6)
+    assert res.second_order[0] == pytest.approx(36 * x**2 * u**4, rel=1e-6)
+
+
+def test_second_order_terms_close_the_budget():
+    """The second-order variance is one budget entry of its own, so that the shares still
+    add to 1 (GUM 5.1.2 Note: the terms are added to u_c^2)."""
+    from uqreport.budget import budget
+
+    ins = InputSet([InputQuantity("x1", 1.5, 0.2), InputQuantity("x2", 2.0, 0.3)])
+    res = propagate_linear(columns_model(lambda x1, x2: x1 * x2**2, ins, ["y"]), second_order=True)
+    bud = budget(res, "y")
+    extra = [e for e in bud.entries if e.group == "nonlinearity"]
+    assert len(extra) == 1 and extra[0].variance == pytest.approx(res.second_order[0])
+    assert sum(e.share for e in bud.entries) == pytest.approx(1.0, abs=1e-12)
+    assert sum(e.share for e in bud.by_group) == pytest.approx(1.0, abs=1e-12)
+
+
 def test_second_order_rejects_correlated_inputs(gum_h2_inputs):
     with pytest.raises(InputError, match="uncorrelated inputs only"):
         propagate_linear(columns_model(_rxz, gum_h2_inputs, ["R", "X", "Z"]), second_order=True)

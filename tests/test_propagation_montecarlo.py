@@ -14,6 +14,7 @@ from uqreport.inputs import InputQuantity, InputSet
 from uqreport.model import MeasurementModel, columns_model
 from uqreport.propagation import (
     coverage_interval,
+    numerical_tolerance,
     propagate_linear,
     propagate_montecarlo,
     shortest_interval,
@@ -229,3 +230,41 @@ def test_student_t_block_is_multivariate_t():
     m = X.mean(axis=1) * math.sqrt(10)
     assert stats.kstest(m[:20_000], stats.t(nu).cdf).pvalue > 1e-4
     assert stats.kstest(m[:20_000], stats.norm(scale=math.sqrt(nu / (nu - 2))).cdf).pvalue < 1e-6
+
+
+def test_adaptive_procedure_stops_at_the_first_batch_meeting_the_tolerance_jcgm101_7_9_4():
+    """JCGM 101 7.9.4: batches of M = max(100/(1-p), 10^4) = 10^4 trials; after batch h >= 2
+    the standard deviations of the batch means, standard deviations and interval endpoints
+    (s^2 = sum (v_r - mean)^2 / (h (h - 1))) are compared with delta of u(y) from all h M
+    values (7.9.2); the procedure stops at the first h where all four 2 s <= delta, and the
+    results use all h M values.  Recomputed here from the kept draws, batch by batch."""
+    model = _additive([InputQuantity(f"x{i}", 0.0, 1.0) for i in range(4)])
+    mc = propagate_montecarlo(model, rng=11, ndig=2)  # JCGM 101 9.2.2 model, u(y) = 2
+    M = 10_000
+    y = mc.samples[:, 0]
+    h = y.size // M
+    assert y.size == h * M and mc.draws == h * M and mc.adaptive and mc.converged
+
+    def meets_tolerance(k: int) -> bool:
+        batches = y[: k * M].reshape(k, M)
+        ends = np.array([coverage_interval(b, 0.95) for b in batches])
+        stats_ = np.vstack([batches.mean(axis=1), batches.std(axis=1, ddof=1), ends.T])
+        s = stats_.std(axis=1, ddof=1) / math.sqrt(k)
+        delta = numerical_tolerance(float(y[: k * M].std(ddof=1)), 2)
+        assert delta == pytest.approx(0.05)  # u(y) = 2.0 to two digits: delta = 0.05
+        return bool(np.all(2.0 * s <= delta))
+
+    # this seed needs several batches, so the test sees the rule both fail and pass
+    assert h >= 3
+    assert [meets_tolerance(k) for k in range(2, h + 1)] == [False] * (h - 2) + [True]
+    assert mc.u[0] == pytest.approx(y.std(ddof=1), rel=1e-12)
+    assert mc.values[0] == pytest.approx(y.mean(), abs=1e-12)
+    assert (mc.low[0], mc.high[0]) == coverage_interval(y, 0.95)
+
+
+def test_adaptive_batch_size_follows_the_coverage_probability_jcgm101_7_9_4():
+    """JCGM 101 7.9.4 b): M = max(J, 10^4) with J the smallest integer >= 100/(1 - p); for
+    p = 0.999, J = 100 000, so every batch holds 10^5 trials."""
+    model = _additive([InputQuantity(f"x{i}", 0.0, 1.0) for i in range(2)])
+    mc = propagate_montecarlo(model, rng=4, ndig=1, coverage=0.999, keep_samples=False)
+    assert mc.draws % 100_000 == 0 and mc.draws >= 200_000
