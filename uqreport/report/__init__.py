@@ -40,7 +40,6 @@ def report_story(
 ) -> tuple[list, list[str]]:
     """The flowables of the report and the headings of the sections included, in order."""
     from reportlab.platypus import Spacer
-    from reportlab.platypus.flowables import PageBreakIfNotEmpty
 
     from . import pdf
     from .registry import Numbering
@@ -63,7 +62,9 @@ def report_story(
         while story and isinstance(story[-1], Spacer):  # no page of trailing space
             story.pop()
         if story:
-            story.append(PageBreakIfNotEmpty() if sec.new_page else pdf.cond_break(0.2))
+            # a major section starts a new page unless more than half of this one is left
+            # (a hard break left pages holding two lines or one table row)
+            story.append(pdf.cond_break(0.5) if sec.new_page else pdf.cond_break(0.2))
         if sec.heading:
             story.append(pdf.heading(sec.title, 1, number=str(n)))
         story.extend(flows)

@@ -249,7 +249,34 @@ def _cell(v: object, style: ParagraphStyle, width: float) -> Flowable | str:
         safe = fonts().safe(text)
         if stringWidth(safe, style.fontName, style.fontSize) <= width - 2 * _PAD_X:
             return safe
-    return para(text, style)
+    return para(_wrap_long_words(text, style, width - 2 * _PAD_X), style)
+
+
+_BREAK_AFTER = re.compile(r"(?<=[/.\]])(?=\w)")
+
+
+def _wrap_long_words(text: str, style: ParagraphStyle, width: float) -> str | Markup:
+    """``text``, with each word too long for the cell broken after its '/', '.' or ']'
+    (explicit line breaks), so that a name such as ``volume_reading/batch.runs[r1].dye_volume``
+    wraps at its parts; reportlab would otherwise split it in the middle of a word."""
+    words = text.split(" ")
+    if all(stringWidth(w, style.fontName, style.fontSize) <= width for w in words):
+        return text
+    out = []
+    for w in words:
+        if stringWidth(w, style.fontName, style.fontSize) <= width:
+            out.append(esc(w))
+            continue
+        lines, cur = [], ""
+        for piece in _BREAK_AFTER.split(w):
+            if cur and stringWidth(cur + piece, style.fontName, style.fontSize) > width:
+                lines.append(cur)
+                cur = piece
+            else:
+                cur += piece
+        lines.append(cur)
+        out.append("<br/>".join(esc(x) for x in lines))
+    return Markup(" ".join(out))
 
 
 def data_table(

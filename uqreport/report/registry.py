@@ -49,7 +49,8 @@ class Section:
     chain:
         The chain the section is about (built only when the document has it), or None.
     new_page:
-        Start the section on a new page.
+        A major section: it starts on a new page unless more than half of the current
+        page is left (others need a fifth of a page).
     heading:
         Whether the report adds the numbered heading (the summary draws its own title).
     """

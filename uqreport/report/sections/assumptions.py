@@ -132,7 +132,8 @@ def _general_rows(ctx: ReportContext) -> list[AssumptionRow]:
     ]
     if failed:
         what += (
-            "; not validated among the headline quantities: " + ", ".join(failed)
+            "; not validated among the headline quantities: "
+            + ", ".join(failed)
             + " (state their Monte Carlo intervals)"
         )
     return [
@@ -198,7 +199,7 @@ def build_assumptions(ctx: ReportContext) -> list:
             out.append(
                 pdf.bullet(
                     pdf.Markup(
-                        f"<b>{pdf.esc(w.get('check', ''))}</b>, {pdf.esc(w.get('level', ''))}"
+                        f"<b>{pdf.esc(w.get('check', ''))}</b> ({pdf.esc(w.get('level', ''))})"
                         f"{run}: {pdf.esc(w.get('message', ''))}"
                     )
                 )

@@ -27,7 +27,7 @@ def _u(cov: Any, i: int) -> float:
 
 
 def _fitted_pm(value: Any, u: float) -> str:
-    """"0.7664 ± 0.0038", or "0.012 (not fitted)" for a parameter the fit held fixed (a
+    """ "0.7664 ± 0.0038", or "0.012 (not fitted)" for a parameter the fit held fixed (a
     measured or zero baseline, A₀ from the concentration): its u from the fit is 0, and
     "0.01200 ± 0.00000" would read as an exact measurement."""
     if u == 0.0:
@@ -323,10 +323,12 @@ def build_batch(ctx: ReportContext) -> list:
     fits = list(ch["fits"])
     out: list = [
         pdf.para(
-            f"{len(fits)} batch run(s), each fitted with the first-order decay f(t) = A∞ +"
-            " (A₀ − A∞) exp(−k′t) by weighted least squares, with t the time since mixing"
-            " (recorded time plus the mean timing lag). The rate constant k follows from"
-            " k′ = k [OH⁻]^b over the runs.",
+            pdf.Markup(
+                f"{len(fits)} batch run(s), each fitted with the first-order decay f(t) = A∞ +"
+                " (A₀ − A∞) exp(−k′t) by weighted least squares, with t the time since mixing"
+                " (recorded time plus the mean timing lag). The rate constant k follows from"
+                " k′ = k [OH⁻]<super>b</super> over the runs."
+            ),
         )
     ]
     out += [sub(ctx, "Fitted values and checks"), *_fit_tables(ctx, fits)]

@@ -75,6 +75,7 @@ def _validation_table(ctx: ReportContext) -> Any | None:
         rows.append(
             [
                 pdf.Markup(lab.symbol_markup + (" <b>*</b>" if rec.get("headline") else "")),
+                fmt.unit_text(rec.get("unit"), dimensionless="1"),
                 fmt.fmt_sig(rec["linear"]["u"], 3),
                 fmt.fmt_sig(mc["u"], 3),
                 fmt.fmt_sig(val.get("d_low"), 2),
@@ -86,10 +87,10 @@ def _validation_table(ctx: ReportContext) -> Any | None:
     if not rows:
         return None
     return pdf.data_table(
-        ["Quantity", "u, linear", "u, Monte Carlo", "d_low", "d_high", "δ", "Verdict"],
+        ["Quantity", "Unit", "u, linear", "u, Monte Carlo", "d_low", "d_high", "δ", "Verdict"],
         rows,
-        widths=[1.2, 0.9, 0.9, 0.8, 0.8, 0.8, 2.6],
-        align="LRRRRRL",
+        widths=[0.85, 0.75, 0.95, 0.95, 0.8, 0.8, 0.8, 2.1],
+        align="LLRRRRRL",
         highlight=flag,
     )
 
@@ -180,9 +181,9 @@ def build_methods(ctx: ReportContext) -> list:
             "Validation of the linear method by Monte Carlo (JCGM 101, section 8)",
             vt,
             "d_low = |y − U − y_low| and d_high = |y + U − y_high| against the numerical"
-            " tolerance δ of the Monte Carlo result; the linear interval is validated when both"
-            " are within δ. * marks a headline quantity; shaded rows are not validated, and for"
-            " them the Monte Carlo interval is the one to state.",
+            " tolerance δ of the Monte Carlo result, all in the quantity's unit; the linear"
+            " interval is validated when both are within δ. * marks a headline quantity; shaded"
+            " rows are not validated, and for them the Monte Carlo interval is the one to state.",
         )
     return out
 
