@@ -2,8 +2,11 @@
 
 from __future__ import annotations
 
+import hashlib
 import json
 import math
+import re
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -126,3 +129,74 @@ def test_cli_mcmc_options(tmp_path, capsys):
     with np.load(out / "posterior_batch.npz") as z:
         assert z["parameters"].shape[1] == len(z["parameter_names"])
         assert math.isfinite(float(z["derived"].mean()))
+
+
+# -- the documents kept in step with the code ---------------------------------------------------
+DOCS = Path(__file__).resolve().parent.parent / "docs"
+#: maps keyed by names of the study (quantity, chain, file, package names), not by fields
+_NAME_KEYED = {"quantities", "inputs", "chains", "files", "versions", "shares_check"}
+
+
+def _documented_names() -> set[str]:
+    text = (DOCS / "results.md").read_text(encoding="utf-8")
+    prose = re.sub(r"```.*?```", "", text, flags=re.S)
+    return set(re.findall(r"`([^`\n]+)`", prose)) | set(re.findall(r'"(\w+)"\s*:', text))
+
+
+def _field_names(obj, path=()):
+    if isinstance(obj, dict):
+        for k, v in obj.items():
+            if path and path[-1] in _NAME_KEYED:
+                yield from _field_names(v, (*path, "<name>"))
+            else:
+                yield "/".join(path), k
+                yield from _field_names(v, (*path, k))
+    elif isinstance(obj, list):
+        for v in obj:
+            yield from _field_names(v, path)
+
+
+def test_every_field_of_results_json_is_documented(run):
+    """docs/results.md names every field a real results.json holds (the Bayesian records
+    included), so that the schema a user reads is the one written."""
+    _, doc = run
+    named = _documented_names()
+    missing = sorted({(where, k) for where, k in _field_names(doc) if k not in named})
+    assert not missing, missing
+
+
+def test_quantity_records_hold_the_fields_of_the_schema(run):
+    """The record fields results.json promises for each quantity: unit, description, linear
+    {value, u, dof, k, U, coverage}, montecarlo {value, u, low, high, coverage, draws,
+    validated}, budget entries {input, group, sensitivity, u_contribution, share}; and the
+    provenance (package versions, seed, command line, SHA-256 of every input file)."""
+    res, doc = run
+    for rec in doc["quantities"].values():
+        assert {"value", "u", "dof", "k", "U", "coverage"} <= set(rec["linear"])
+        assert {"value", "u", "low", "high", "coverage", "draws", "validated"} <= set(
+            rec["montecarlo"]
+        )
+        for e in rec["budget"]:
+            assert {"input", "group", "sensitivity", "u_contribution", "share"} <= set(e)
+    prov = doc["provenance"]
+    assert {"numpy", "scipy", "uqreport"} <= set(prov["versions"]) and prov["seed"] == 2
+    assert prov["command_line"] == ["test"]
+    exp = res.experiment
+    for rel, digest in prov["files"].items():  # FIPS 180-4 SHA-256 via hashlib
+        assert digest == hashlib.sha256((exp.directory / rel).read_bytes()).hexdigest()
+    assert "experiment.toml" in prov["files"] and len(prov["files"]) >= 2
+
+
+def test_every_test_named_in_the_validation_document_exists():
+    """docs/validation.md lists each external check with the test that runs it; a renamed or
+    deleted test must not leave a dead reference behind."""
+    text = (DOCS / "validation.md").read_text(encoding="utf-8")
+    defined = set()
+    for f in Path(__file__).resolve().parent.glob("test_*.py"):
+        defined |= set(re.findall(r"^def (test_\w+)", f.read_text(encoding="utf-8"), re.M))
+    named = {
+        n
+        for n in re.findall(r"::(test_\w+)", text)
+        if not n.endswith("_")  # a pattern such as ::test_constant_lag_*
+    }
+    assert named and not sorted(named - defined), sorted(named - defined)
