@@ -772,3 +772,34 @@ def test_every_observation_is_checked_against_the_range():
         "solutions.s.concentration.observations observation 2, -498 mmol/L, is out of range:"
         " each must be > 0 mol/L. check the number and its unit."
     ]
+
+
+# -- a misspelt key is one problem, not also a missing one -------------------------------------
+@pytest.mark.parametrize(
+    ("edit", "where", "meant"),
+    [
+        (('title = "Dye', 'titel = "Dye'), "experiment.toml: study.titel", "title"),
+        (('name = "r1"', 'nmae = "r1"'), "experiment.toml: batch.runs[0].nmae", "name"),
+        (('unit = "mol/L", u = 0.001', 'unti = "mol/L", u = 0.001'),
+         "experiment.toml: solutions.oh_stock.concentration.unti", "unit"),
+        (('unit = "mol/L", u = 0.001', 'unit = "mol/L", uu = 0.001'),
+         "experiment.toml: solutions.oh_stock.concentration.uu", "u"),
+        (('concentration = { value = 0.200', 'concentration = { vaule = 0.200'),
+         "experiment.toml: solutions.oh_stock.concentration.vaule", "value"),
+        (('hydroxide_solution = "oh_040"', 'hydroxide_solutoin = "oh_040"'),
+         "experiment.toml: batch.runs[r1].hydroxide_solutoin", "hydroxide_solution"),
+    ],
+)
+def test_a_misspelt_key_is_reported_once(tmp_path, edit, where, meant):
+    """A typo of a required key is one problem with its "did you mean" (difflib's closest
+    match); the key's absence, which the typo causes, is not reported a second time."""
+    (p,) = problems(study_copy(tmp_path, edit))
+    assert p.where == where
+    assert f"Did you mean '{meant}'?" in p.message
+
+
+def test_a_missing_key_without_a_typo_is_still_reported(tmp_path):
+    # an unknown key that is no near miss of the absent one leaves the absence reported
+    study = study_copy(tmp_path, ('title = "Dye', 'colour = "Dye'))
+    wheres = {p.where for p in problems(study)}
+    assert wheres == {"experiment.toml: study.colour", "experiment.toml: study.title"}

@@ -116,7 +116,9 @@ def _check_mixture(r: Record) -> None:
         r.add("", "both hydroxide_concentration and " + " + ".join(parts) + " are given.",
               "give either hydroxide_concentration (in the mixture), or hydroxide_solution +"
               " hydroxide_volume.")
-    elif not direct and not parts:
+    elif not direct and not parts and not any(
+        r.misspelt(k) for k in ("hydroxide_concentration", "hydroxide_solution", "hydroxide_volume")
+    ):
         r.add("", "the run gives no hydroxide: neither hydroxide_concentration nor"
               " hydroxide_solution + hydroxide_volume.",
               'add hydroxide_concentration = { value = ..., unit = "mol/L", u = ... }, or'

@@ -217,8 +217,11 @@ class _Number:
 
 
 def _unknown_keys(raw: Mapping[str, Any], allowed: tuple[str, ...], key: str, report: Report,
-                  *, plain: bool) -> bool:
+                  *, plain: bool) -> tuple[bool, set[str]]:
+    """Report the unknown keys of a quantity record; returns (no unknown key, the absent
+    keys that some unknown key was suggested to be)."""
     ok = True
+    meant: set[str] = set()
     for name in raw:
         if name in allowed:
             continue
@@ -231,7 +234,9 @@ def _unknown_keys(raw: Mapping[str, Any], allowed: tuple[str, ...], key: str, re
         hint = f" Did you mean '{close[0]}'?" if close else ""
         report(f"{key}.{name}", f"unknown key '{name}' in a quantity record.{hint}",
                "allowed keys here: " + ", ".join(allowed) + ".")
-    return ok
+        if close and close[0] not in raw:
+            meant.add(close[0])
+    return ok, meant
 
 
 def parse_quantity(
@@ -274,7 +279,9 @@ def parse_quantity(
                    f"write an inline table, e.g. {_example(dimension, mode)}.")
         return None
     allowed = PLAIN_KEYS if mode == "plain" else QUANTITY_KEYS
-    ok = _unknown_keys(raw, allowed, key, report, plain=mode == "plain")
+    # a key reported as misspelt ("unti", did you mean 'unit'?) is not reported again as
+    # missing
+    ok, meant = _unknown_keys(raw, allowed, key, report, plain=mode == "plain")
     num = _Number(raw, key, report)
 
     # unit ---------------------------------------------------------------------------
@@ -283,8 +290,9 @@ def parse_quantity(
         if unitless:
             unit_text = "1"
         else:
-            report(f"{key}.unit", f"no unit is given for this {dim_text}.",
-                   f'add unit = "{internal_unit(dimension)}" (or another {dim_text} unit).')
+            if "unit" not in meant:
+                report(f"{key}.unit", f"no unit is given for this {dim_text}.",
+                       f'add unit = "{internal_unit(dimension)}" (or another {dim_text} unit).')
             ok = False
     elif not isinstance(unit_text, str):
         report(f"{key}.unit", f"unit = {unit_text!r} is not a string.",
@@ -307,8 +315,9 @@ def parse_quantity(
             ok = False
         elif not forms:
             ways = _FORMS_TEXT + ("; glassware = '<glassware id>'" if glassware_ok else "")
-            report(key, f"no uncertainty is given for this {dim_text}.",
-                   f"add one of: {ways} (u = 0 states an exact value).")
+            if not meant & set(UNCERTAINTY_FORMS):
+                report(key, f"no uncertainty is given for this {dim_text}.",
+                       f"add one of: {ways} (u = 0 states an exact value).")
             ok = False
         if "k" in raw and "expanded" not in raw:
             report(f"{key}.k", "k (coverage factor) is given without expanded.",
@@ -348,8 +357,9 @@ def parse_quantity(
         if mode == "offset":
             value = 0.0
         else:
-            report(f"{key}.value", f"no value is given for this {dim_text}.",
-                   "add value = <number>.")
+            if "value" not in meant:
+                report(f"{key}.value", f"no value is given for this {dim_text}.",
+                       "add value = <number>.")
             ok = False
     for name in ("u", "half_width", "expanded"):
         num.get(name, nonnegative=True)

@@ -201,6 +201,9 @@ class Context:
         (relative path, kind) -> the table read (a table used twice is read once).
     sections:
         Section name -> parsed value, filled in registration order.
+    misspelt:
+        Key paths of keys absent because an unknown key was reported with them as its
+        "did you mean" (``nmae`` for ``name``): the absence is not reported a second time.
     """
 
     file: str
@@ -214,6 +217,7 @@ class Context:
     files: dict[str, str] = field(default_factory=dict)
     tables: dict[tuple[str, str], Table | None] = field(default_factory=dict)
     sections: dict[str, Any] = field(default_factory=dict)
+    misspelt: set[str] = field(default_factory=set)
 
     def where(self, key: str) -> str:
         """``"<file>: <key>"`` (just the file name for the whole file)."""
@@ -274,8 +278,18 @@ class Record:
         """The key path of ``name`` in this record."""
         return _join(self.key, name)
 
+    def misspelt(self, name: str) -> bool:
+        """Whether ``name`` is absent because an unknown key was reported as its typo."""
+        return self.sub(name) in self.ctx.misspelt
+
     def add(self, name: str, message: str, fix: str = "") -> None:
-        """Record a problem at key ``name`` of this record (``""``: the record itself)."""
+        """Record a problem at key ``name`` of this record (``""``: the record itself).
+
+        A problem at a key that is absent because it was misspelt (reported already, with a
+        "did you mean") is not added: it would report the same typo a second time.
+        """
+        if name and self.misspelt(name):
+            return
         self.ctx.add(self.sub(name) if name else self.key, message, fix)
 
     def inherit(self, name: str, spec: QuantitySpec | None) -> QuantitySpec | None:
@@ -290,10 +304,16 @@ def _join(key: str, name: str) -> str:
     return f"{key}.{name}" if key else name
 
 
+def closest(word: str, allowed: Iterator[str] | tuple[str, ...] | list[str]) -> str | None:
+    """The closest of ``allowed`` to ``word`` (difflib ratio >= 0.6), or ``None``."""
+    close = difflib.get_close_matches(str(word), list(allowed), n=1, cutoff=0.6)
+    return close[0] if close else None
+
+
 def suggest(word: str, allowed: Iterator[str] | tuple[str, ...] | list[str]) -> str:
     """``" Did you mean 'x'?"`` for the closest of ``allowed``, or ``""``."""
-    close = difflib.get_close_matches(str(word), list(allowed), n=1, cutoff=0.6)
-    return f" Did you mean '{close[0]}'?" if close else ""
+    close = closest(word, allowed)
+    return f" Did you mean '{close}'?" if close else ""
 
 
 def _describe(f: Field, key: str) -> str:
@@ -312,8 +332,12 @@ def _check_unknown(raw: Mapping[str, Any], spec: RecordSpec, key: str, ctx: Cont
         if name in allowed:
             continue
         place = (f"[{key}]" if "[" not in key else key) if key else "the top level"
-        ctx.add(_join(key, str(name)), f"unknown key '{name}' in {place}.{suggest(name, allowed)}",
+        close = closest(name, allowed)
+        hint = f" Did you mean '{close}'?" if close else ""
+        ctx.add(_join(key, str(name)), f"unknown key '{name}' in {place}.{hint}",
                 "allowed keys here: " + ", ".join(allowed) + ".")
+        if close is not None and close not in raw:
+            ctx.misspelt.add(_join(key, close))
 
 
 def parse_record(raw: object, spec: RecordSpec, *, key: str, ctx: Context,
@@ -337,8 +361,9 @@ def parse_field(f: Field, container: Mapping[str, Any], *, key: str, ctx: Contex
     if f.required:
         section = f.kind in ("record", "mapping", "records") and "[" not in fkey
         what = "section" if section else "key"
-        ctx.add(fkey, f"required {what} {_describe(f, fkey)} is missing.",
-                f"add {f.example or f.name}" + (f" ({f.doc})." if f.doc else "."))
+        if fkey not in ctx.misspelt:  # else already reported as the misspelt key
+            ctx.add(fkey, f"required {what} {_describe(f, fkey)} is missing.",
+                    f"add {f.example or f.name}" + (f" ({f.doc})." if f.doc else "."))
         if f.kind == "mapping":
             ctx.ids[fkey] = ()
         return None
