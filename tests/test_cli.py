@@ -257,3 +257,29 @@ def test_check_finds_what_the_analysis_would_refuse(tmp_path, capsys):
     err = capsys.readouterr().err
     assert "batch.runs[r1]: the excess ratio [OH]/[dye]0 is 2" in err
     assert "Traceback" not in err
+
+
+@pytest.mark.parametrize("command", ["analyze", "plan"])
+def test_an_output_over_an_input_table_exits_2_before_the_analysis(
+    tmp_path, monkeypatch, capsys, command
+):
+    """A table named like an output (fits.csv) and --out its own folder: refused with exit 2
+    before the analysis runs (it used to run the whole analysis first), the table untouched."""
+    import uqreport.analysis
+
+    src = tmp_path / "study"
+    src.mkdir()
+    for p in (DATA / "good").iterdir():
+        (src / ("fits.csv" if p.name == "r1.csv" else p.name)).write_bytes(p.read_bytes())
+    toml = src / "experiment.toml"
+    toml.write_text(toml.read_text().replace('"r1.csv"', '"fits.csv"', 1))
+    before = _hashes(src)
+
+    def not_reached(*args, **kwargs):
+        raise AssertionError("the analysis ran before the outputs were checked")
+
+    monkeypatch.setattr(uqreport.analysis, "analyze", not_reached)
+    assert cli.main([command, str(src), "--out", str(src)]) == 2
+    err = capsys.readouterr().err
+    assert "fits.csv would overwrite an input file" in err and "Traceback" not in err
+    assert _hashes(src) == before

@@ -293,7 +293,7 @@ def _plan_table(res) -> str:
 
 def _plan(args: argparse.Namespace, argv: list[str]) -> int:
     from .analysis import DEFAULT_SEED, Settings, analyze
-    from .results import write_results
+    from .results import OUTPUT_FILES, write_results
 
     settings = Settings(
         coverage=args.coverage,
@@ -302,6 +302,7 @@ def _plan(args: argparse.Namespace, argv: list[str]) -> int:
     )
     if args.out is not None:
         _check_out(args.out)
+        _refuse_early(args.experiment, args.out, OUTPUT_FILES[:3])
     res = analyze(args.experiment, settings=settings)
     if res.plan is None:
         raise InputError(f"{args.experiment}: there is nothing to plan (no analysed chain).")
@@ -312,11 +313,27 @@ def _plan(args: argparse.Namespace, argv: list[str]) -> int:
     return EXIT_OK
 
 
+def _refuse_early(exp_path: Path, out: Path, names: Sequence[str]) -> None:
+    """Refuse an --out where an output would overwrite an input file, before the analysis
+    spends its time (the file check is quick; its problems are those the analysis reports)."""
+    from .experiment import check_experiment
+    from .results import refuse_input_overwrite
+
+    refuse_input_overwrite(check_experiment(exp_path), [out / n for n in names])
+
+
 def _analyze(exp_path: Path, out: Path, args: argparse.Namespace, argv: list[str]) -> int:
     from .analysis import analyze
-    from .results import parameter_label, results_dict, write_results
+    from .results import (
+        OUTPUT_FILES,
+        parameter_label,
+        refuse_input_overwrite,
+        results_dict,
+        write_results,
+    )
 
     _check_out(out)
+    _refuse_early(exp_path, out, OUTPUT_FILES)
     res = analyze(exp_path, settings=_settings(args))
     doc = results_dict(res, command_line=["uqreport", *argv])
     write_results(res, out, doc=doc)
@@ -332,9 +349,11 @@ def _analyze(exp_path: Path, out: Path, args: argparse.Namespace, argv: list[str
         for c, ch in res.chains.items():
             if ch.posterior is None:
                 continue
-            ch.posterior.save_draws(out / f"posterior_{c}.npz")
+            npz, nc = out / f"posterior_{c}.npz", out / f"posterior_{c}.nc"
+            refuse_input_overwrite(res.experiment, [npz, nc])
+            ch.posterior.save_draws(npz)
             try:
-                ch.posterior.to_netcdf(out / f"posterior_{c}.nc")
+                ch.posterior.to_netcdf(nc)
             except InputError:
                 pass  # ArviZ is an optional extra; the .npz file has the same draws
     if not args.no_report:

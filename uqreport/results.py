@@ -26,13 +26,19 @@ from .budget import Budget
 from .io import atomic_write_text
 
 __all__ = [
+    "OUTPUT_FILES",
     "SCHEMA",
     "budget_csv",
     "fits_csv",
     "parameter_label",
+    "refuse_input_overwrite",
     "results_dict",
     "write_results",
 ]
+
+#: The files an analysis writes into its output folder (the posterior draws files come on
+#: top with --save-draws).
+OUTPUT_FILES = ("results.json", "budget.csv", "fits.csv", "report.pdf")
 
 SCHEMA = "uqreport.results/1"
 
@@ -449,7 +455,7 @@ def write_results(
         "budget": out / "budget.csv",
         "fits": out / "fits.csv",
     }
-    _refuse_inputs(res, [*targets.values(), out / "report.pdf"])
+    refuse_input_overwrite(res.experiment, [out / name for name in OUTPUT_FILES])
     if doc is None:
         doc = results_dict(res, command_line=command_line)
     atomic_write_text(targets["results"], json.dumps(doc, indent=2, allow_nan=False) + "\n")
@@ -458,10 +464,11 @@ def write_results(
     return targets
 
 
-def _refuse_inputs(res: StudyResult, paths) -> None:
+def refuse_input_overwrite(exp, paths) -> None:
+    """Raise :class:`~uqreport.errors.InputError` when one of ``paths`` is an input file of
+    the experiment ``exp`` (the experiment file or a table it reads)."""
     from .errors import InputError
 
-    exp = res.experiment
     inputs = {(exp.directory / rel).resolve() for rel in exp.files}
     inputs.add(exp.path.resolve())
     for p in paths:
