@@ -18,7 +18,15 @@ from numpy.typing import NDArray
 
 from .propagation.linear import LinearResult
 
-__all__ = ["CORRELATION_GROUP", "Budget", "BudgetEntry", "budget", "budgets"]
+__all__ = [
+    "CORRELATION_GROUP",
+    "Budget",
+    "BudgetEntry",
+    "ShareCheck",
+    "budget",
+    "budgets",
+    "monte_carlo_shares",
+]
 
 #: Group name of covariance cross terms.
 CORRELATION_GROUP = "correlation"

@@ -53,8 +53,9 @@ def standard_uncertainty_from_half_width(half_width: float, distribution: str) -
     """Standard uncertainty of a symmetric distribution of half-width ``half_width``.
 
     Rectangular a/sqrt(3), triangular a/sqrt(6), arcsine a/sqrt(2) (GUM 4.3.7, 4.3.9;
-    JCGM 101 6.4.6).  A normal "half-width" is taken as a 3-sigma limit is *not* assumed:
-    give a normal input by its standard uncertainty or its expanded uncertainty and k.
+    JCGM 101 6.4.6).  A normal or Student t input has no half-width form (reading a
+    "half-width" as, say, a 3-sigma limit would be a guess): give it by its standard
+    uncertainty, or by its expanded uncertainty and k.
     """
     divisor = DISTRIBUTIONS.get(distribution)
     if divisor is None:
