@@ -803,3 +803,13 @@ def test_a_missing_key_without_a_typo_is_still_reported(tmp_path):
     study = study_copy(tmp_path, ('title = "Dye', 'colour = "Dye'))
     wheres = {p.where for p in problems(study)}
     assert wheres == {"experiment.toml: study.colour", "experiment.toml: study.title"}
+
+
+def test_experiment_file_not_utf8_names_the_line_and_byte(tmp_path):
+    # 0xb0 is the degree sign in Latin-1; it is no valid UTF-8 start byte (RFC 3629)
+    path = tmp_path / "experiment.toml"
+    path.write_bytes(b'format_version = 1\n[study]\ntitle = "bath at 22 \xb0C"\n')
+    (p,) = problems(path)
+    assert p.where == "experiment.toml, line 3"
+    assert "not UTF-8 text (byte 0xb0 cannot be decoded)" in p.message
+    assert "UTF-8" in p.fix

@@ -154,8 +154,13 @@ def _read(path: Path) -> tuple[dict[str, Any], bytes]:
         text = data.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
         line = data[: exc.start].count(b"\n") + 1
-        raise ExperimentError([Problem(f"{name}, line {line}", "the file is not UTF-8 text.",
-                                       "save it as UTF-8.")]) from None
+        byte = data[exc.start : exc.start + 1].hex()
+        raise ExperimentError([Problem(f"{name}, line {line}",
+                                       f"the file is not UTF-8 text (byte 0x{byte} cannot be"
+                                       " decoded).",
+                                       "save it as UTF-8 (in a text editor: encoding UTF-8);"
+                                       " a degree sign or a micro sign typed in another"
+                                       " encoding is the usual cause.")]) from None
     try:
         raw = tomllib.loads(text)
     except tomllib.TOMLDecodeError as exc:
