@@ -813,3 +813,34 @@ def test_experiment_file_not_utf8_names_the_line_and_byte(tmp_path):
     assert p.where == "experiment.toml, line 3"
     assert "not UTF-8 text (byte 0xb0 cannot be decoded)" in p.message
     assert "UTF-8" in p.fix
+
+
+@pytest.mark.parametrize(
+    ("record", "given"),
+    [
+        ({"unit": "mol/L", "observations": [0.199, 0.2, 0.201], "distribution": "t"},
+         "3 observations (2 degrees of freedom)"),
+        ({"value": 0.2, "unit": "mol/L", "u": 0.001, "distribution": "t", "dof": 1},
+         "1 degrees of freedom"),
+    ],
+)
+def test_t_distribution_without_a_finite_variance_is_refused(record, given):
+    """A Student t distribution with nu <= 2 has no finite variance (nu/(nu - 2) s^2 exists
+    for nu > 2 only; JCGM 101 6.4.9, standard result), so Monte Carlo draws of it give no
+    standard uncertainty; the file check says so instead of letting the draws run."""
+    msgs = []
+    spec = parse_quantity(record, key="x", dimension="concentration", mode="uncertain",
+                          report=lambda *a: msgs.append(a))
+    assert spec is None
+    (where, message, fix) = msgs[0]
+    assert where == "x.distribution" and f"with {given} has no finite variance" in message
+    assert "4 or more observations" in fix
+
+
+def test_t_distribution_with_three_degrees_of_freedom_is_accepted():
+    # nu = 3: variance 3 s^2 (finite), so the input stays a Student t (JCGM 101 6.4.9)
+    msgs = []
+    spec = parse_quantity({"unit": "mol/L", "observations": [0.199, 0.2, 0.201, 0.2],
+                           "distribution": "t"}, key="x", dimension="concentration",
+                          mode="uncertain", report=lambda *a: msgs.append(a))
+    assert not msgs and spec is not None

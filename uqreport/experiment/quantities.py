@@ -430,6 +430,19 @@ def parse_quantity(
         report(f"{key}.distribution", "distribution = 't' needs degrees of freedom.",
                "give dof (or reliability, or observations), or use distribution = 'normal'.")
         ok = False
+    elif dist == "t" and dof <= 2.0:
+        # a t distribution with nu <= 2 has no finite variance (its variance is
+        # nu/(nu - 2) times the squared scale for nu > 2): Monte Carlo draws of it give no
+        # standard uncertainty, and the adaptive procedure would not settle
+        given = f"{dof:g} degrees of freedom"
+        if observations is not None:
+            given = f"{len(observations)} observations ({given})"
+        report(f"{key}.distribution", f"distribution = 't' with {given} has no finite"
+               " variance, so Monte Carlo cannot give a standard uncertainty from it.",
+               "give 4 or more observations (3 or more degrees of freedom), or remove"
+               " distribution = 't': the input is then normal and its degrees of freedom still"
+               " set the coverage factor.")
+        ok = False
     if not (ok and num.ok) or unit_text is None:
         return None
 
