@@ -288,3 +288,212 @@ def test_log_linear_weights_come_from_the_fitted_curve(tmp_path):
         t = fit.times[fit.used]
         expected = (fit.curve(t) - fit.params[0]) ** 2 / fit.sigma**2
         np.testing.assert_allclose(run.weights, expected, rtol=1e-9)
+
+
+def _with_column(path, name, values):
+    """Add a column ``name`` (one value per data row) to a batch table."""
+    lines = path.read_text(encoding="utf-8").splitlines()
+    head = [ln for ln in lines if ln.startswith("#")]
+    header = next(ln for ln in lines if not ln.startswith("#"))
+    rows = [ln for ln in lines[len(head) + 1 :] if ln.strip()]
+    out = [*head, f"{header},{name}", *(f"{r},{v}" for r, v in zip(rows, values, strict=True))]
+    path.write_text("\n".join(out) + "\n", encoding="utf-8")
+
+
+def _rate(path, run="r1"):
+    lin = propagate_linear(build_batch_chain(load_experiment(path)).model)
+    return lin.values[lin.index(f"pseudo_rate_constant/{run}")]
+
+
+def test_proportional_noise_is_taken_at_the_fitted_absorbance(demo):
+    """noise_model = "proportional": sigma_A^2 = noise_sd^2 + (noise_relative A)^2 with A the
+    expected reading, i.e. the fitted absorbance (a variance function is evaluated at the
+    mean, as in iteratively reweighted least squares; common practice), plus the jitter as
+    effective variance (dA/dt)^2 u(jitter)^2 (design card 3)."""
+    set_batch_option(demo, "noise_model", '"proportional"')
+    edit_toml(demo, "noise_sd = 0.002", "noise_sd = 0.002\nnoise_relative = 0.01")
+    ch = build_batch_chain(load_experiment(demo))
+    assert not any(f.check == "noise model" for f in ch.findings)
+    for fit, run in zip(ch.fits, ch.study.runs, strict=True):
+        assert fit.noise_source == "spec"
+        t = fit.times[fit.used]
+        A_fit = fit.curve(t)  # the offsets are 0 at their estimates in the demo
+        c, a0, k = fit.params
+        slope = -k * (a0 - c) * np.exp(-k * (t + fit.time_origin))
+        var = 0.002**2 + (0.01 * A_fit) ** 2 + (slope * 2.0) ** 2  # u(jitter) = 2 s
+        np.testing.assert_allclose(run.weights, 1.0 / var, rtol=1e-3)
+        np.testing.assert_allclose(fit.sigma, np.sqrt(var), rtol=1e-3)
+    # the readings' own standard uncertainty is the noise model's part (the jitter is an
+    # input of its own)
+    lin = propagate_linear(ch.model)
+    fit = ch.fits[0]
+    line = fit.lines[fit.used][0]
+    q = lin.inputs.inputs[lin.inputs.names.index(f"absorbance/r1/line{line}")]
+    a_first = float(fit.curve(fit.times[fit.used][:1])[0])
+    assert q.u == pytest.approx(np.hypot(0.002, 0.01 * a_first), rel=1e-5)
+
+
+def test_proportional_noise_without_a_relative_part_warns(demo):
+    set_batch_option(demo, "noise_model", '"proportional"')
+    ch = build_batch_chain(load_experiment(demo))
+    w = [f for f in ch.findings if f.check == "noise model" and f.run is None]
+    assert w and "noise_relative is 0" in w[0].message
+
+
+def test_measured_baseline_cancels_the_blank_and_carries_the_final_reading(demo):
+    """baseline = "measured": A_inf is the final absorbance measured after the decay.  Both
+    the readings and the final value are read after one blank, so the blank offset cancels
+    in A - A_inf (zero sensitivity), while the final reading's own uncertainty enters k':
+    raising A_inf makes ln(A - A_inf) fall faster, so dk'/dA_inf > 0."""
+    text = demo.read_text(encoding="utf-8")
+    for run in ("r1", "r2", "r3"):
+        table = f'table = "batch_{run}.csv"\n'
+        text = text.replace(table, table + "final_absorbance = { value = 0.008, u = 0.002 }\n")
+    demo.write_text(text, encoding="utf-8")
+    set_batch_option(demo, "baseline", '"measured"')
+    ch = build_batch_chain(load_experiment(demo))
+    lin = propagate_linear(ch.model)
+    for fit in ch.fits:
+        assert fit.params[0] == pytest.approx(0.008, abs=1e-12)
+        name = f"pseudo_rate_constant/{fit.name}"
+        u_k = lin.u[lin.index(name)]
+        assert abs(lin.sensitivity(name, "blank/b1")) * 0.002 < 1e-6 * u_k
+        assert lin.sensitivity(name, f"final_absorbance/{fit.name}") > 0
+        b = budget(lin, name)
+        entry = next(e for e in b.entries if e.input == f"final_absorbance/{fit.name}")
+        assert entry.share > 0.01
+
+
+def test_per_cuvette_pathlength_normalises_each_reading(demo):
+    """Beer-Lambert, A = eps l c (design card 2.1): readings of one run taken alternately in
+    a 1 cm and a 0.5 cm cuvette, the latter at half the absorbance, are the same
+    pathlength-normalised data a = A/l as all in the 1 cm cuvette, and the noise of a
+    reading (in A) weighs l^2 times in a; the short cuvette's pathlength uncertainty then
+    enters k' (it no longer cancels), while with one cuvette per run it cancels."""
+    ch1 = build_batch_chain(load_experiment(demo))
+    lin = propagate_linear(ch1.model)
+    b = budget(lin, "pseudo_rate_constant/r1")
+    assert b.share_of_group("cuvette pathlength") < 1e-12
+    fit1 = next(f for f in ch1.fits if f.name == "r1")
+    edit_toml(
+        demo,
+        "[glassware.cyl50]",
+        '[cuvettes.c2]\npathlength = { value = 0.5, unit = "cm", half_width = 0.005,'
+        ' distribution = "rectangular" }\n\n[glassware.cyl50]',
+    )
+    table = demo.parent / "batch_r1.csv"
+    edit_table(
+        table,
+        lambda rows: [
+            [r[0], f"{float(r[1]) / 2:.6f}" if i % 2 else r[1]] for i, r in enumerate(rows)
+        ],
+    )
+    n = sum(1 for ln in table.read_text().splitlines()[2:] if ln.strip())
+    short = np.arange(n) % 2 == 1
+    _with_column(table, "cuvette", ["c2" if s else "c1" for s in short])
+    ch = build_batch_chain(load_experiment(demo))
+    fit = next(f for f in ch.fits if f.name == "r1")
+    run = next(r for r in ch.study.runs if r.name == "r1")
+    np.testing.assert_allclose(fit.pathlength, np.where(short, 0.5, 1.0))
+    # the model's data at the input estimates: a = (A - offsets)/l, as the 1 cm readings
+    # (halving a 4-decimal reading is exact to 6 decimals)
+    X0 = ch.model.inputs.values[None, :]
+    _, a = run.data(X0)
+    used = fit.used
+    np.testing.assert_allclose(a[0], fit1.absorbance[used], atol=1e-12)
+    # weights l^2/sigma^2: the readings in the short cuvette weigh a quarter as much (the
+    # jitter term, in a, is the same for both)
+    lin = propagate_linear(ch.model)
+    sig_a = fit.sigma / fit.pathlength[used]
+    np.testing.assert_allclose(run.weights, 1.0 / sig_a**2, rtol=1e-12)
+    i = np.flatnonzero(used)
+    q = {
+        lin.inputs.names[j]: lin.inputs.inputs[j].u
+        for j in range(len(lin.inputs.names))
+        if lin.inputs.names[j].startswith("absorbance/r1/")
+    }
+    for j in i:
+        assert q[f"absorbance/r1/line{fit.lines[j]}"] == pytest.approx(0.002, rel=1e-12)
+    assert abs(lin.sensitivity("pseudo_rate_constant/r1", "pathlength/c2")) > 0
+    b = budget(lin, "pseudo_rate_constant/r1")
+    assert b.share_of_group("cuvette pathlength") > 1e-6  # small, but no longer cancelled
+
+
+def test_fit_window_and_flags_exclude_readings_as_if_removed(demo):
+    """A reading outside the fit window or flagged 'exclude'/'outlier' is left out of the fit
+    (and named with its reason): k' equals the fit of the table with those rows deleted."""
+    table = demo.parent / "batch_r1.csv"
+    original = table.read_text(encoding="utf-8")
+    n = sum(1 for ln in original.splitlines()[2:] if ln.strip())
+    flags = [""] * n
+    flags[4], flags[9] = "exclude", "outlier"
+    _with_column(table, "flag", flags)
+    set_batch_option(demo, "fit_start", '{ value = 60, unit = "s" }')
+    set_batch_option(demo, "fit_end", '{ value = 800, unit = "s" }')
+    ch = build_batch_chain(load_experiment(demo))
+    fit = next(f for f in ch.fits if f.name == "r1")
+    reasons = dict(zip(fit.times.tolist(), fit.reasons, strict=True))
+    assert reasons[30.0] == "outside the fit window"
+    assert reasons[fit.times[4]] == "flagged 'exclude' in the table"
+    assert reasons[fit.times[9]] == "flagged 'outlier' in the table"
+    assert all(r == "outside the fit window" for t, r in reasons.items() if t > 800)
+    lin = propagate_linear(ch.model)
+    k_flagged = lin.values[lin.index("pseudo_rate_constant/r1")]
+    kept = fit.times[fit.used]
+    table.write_text(original, encoding="utf-8")
+    edit_table(table, lambda rows: [r for r in rows if float(r[0]) in set(kept.tolist())])
+    text = demo.read_text(encoding="utf-8")
+    text = text.replace('fit_start = { value = 60, unit = "s" }\n', "")
+    demo.write_text(text.replace('fit_end = { value = 800, unit = "s" }\n', ""), encoding="utf-8")
+    assert _rate(demo) == pytest.approx(k_flagged, rel=1e-9)
+
+
+def test_across_run_estimators_against_closed_forms(demo):
+    """With the order fixed at 1, k_r = k'_r/[OH]_r and k is their weighted mean with
+    weights 1/u_own^2 (compare: Cox, Metrologia 39 (2002) 589, procedure A, from memory),
+    chi2 = sum w (k_r - k)^2, Birge ratio sqrt(chi2/(R - 1)), p from the chi-square law
+    (scipy.stats); with the order free, b and ln k_b are the weighted straight line
+    ln k' = ln k_b + b ln [OH] (numpy.polyfit as the reference)."""
+    from scipy import stats
+
+    ch = build_batch_chain(load_experiment(demo))
+    lin = propagate_linear(ch.model)
+    v = {n: lin.values[lin.index(n)] for n in lin.output_names}
+    runs = ("r1", "r2", "r3")
+    kp = np.array([v[f"pseudo_rate_constant/{r}"] for r in runs])
+    oh = np.array([v[f"hydroxide_concentration/{r}"] for r in runs])
+    k_r = np.array([v[f"second_order_rate_constant/{r}"] for r in runs])
+    np.testing.assert_allclose(k_r, kp / oh, rtol=1e-12)  # at the stated temperature
+    w = np.array(ch.consistency["mean_weights"])
+    assert v["second_order_rate_constant"] == pytest.approx(float(w @ k_r), rel=1e-12)
+    # the weights are 1/u^2 from the inputs acting on one run alone: here every run has its
+    # own readings, lag and volumes, and shares the stock, the cylinders and the temperature
+    chi2 = float(ch.consistency["chi2"])
+    assert ch.consistency["birge_ratio"] == pytest.approx(np.sqrt(chi2 / 2), rel=1e-12)
+    assert ch.consistency["p_value"] == pytest.approx(stats.chi2.sf(chi2, 2), rel=1e-9)
+    wo = np.array(ch.consistency["order_weights"])
+    b, ln_kb = np.polyfit(np.log(oh), np.log(kp), 1, w=np.sqrt(wo))
+    assert v["hydroxide_order"] == pytest.approx(b, rel=1e-9)
+    assert v["rate_constant_free_order"] == pytest.approx(np.exp(ln_kb), rel=1e-9)
+
+
+def test_reference_temperature_correction_is_arrhenius(demo):
+    """k_ref = k exp(-(E_a/R)(1/T_ref - 1/T_s)) with R = 8.314462618 J/(mol K) (CODATA 2018):
+    the demo states 22 degC and refers to 25 degC with E_a = 60.57 kJ/mol, so
+    k_ref/k = exp(60570/R (1/295.15 - 1/298.15)) = 1.2819 (recomputed), and
+    d ln k_ref / d E_a = (1/T_s - 1/T_ref)/R."""
+    lin = propagate_linear(build_batch_chain(load_experiment(demo)).model)
+    k = lin.values[lin.index("second_order_rate_constant")]
+    k_ref = lin.values[lin.index("second_order_rate_constant_at_reference")]
+    R, Ts, Tr = 8.314462618, 295.15, 298.15
+    assert k_ref / k == pytest.approx(math.exp(60570 / R * (1 / Ts - 1 / Tr)), rel=1e-12)
+    assert k_ref / k == pytest.approx(1.2819, abs=1e-4)
+    c = lin.sensitivity("second_order_rate_constant_at_reference", "activation_energy")
+    assert c / k_ref == pytest.approx((1 / Ts - 1 / Tr) / R, rel=1e-4)
+    # Ea in J/mol internally; its u = 2 kJ/mol gives about 1.5 % of k_ref
+    u_ea = 2000.0
+    b = budget(lin, "second_order_rate_constant_at_reference")
+    assert b.share_of_group("activation energy") == pytest.approx(
+        (c * u_ea) ** 2 / lin.u[lin.index("second_order_rate_constant_at_reference")] ** 2,
+        rel=1e-6,
+    )

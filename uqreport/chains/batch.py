@@ -428,6 +428,23 @@ class _Builder:
         tu, au, lu = t_nom[uj], a_nom[uj], l_nom[uj]
         w0 = lu**2 / sig_A[uj] ** 2
         fit0 = fit_decay(tu, au, weights=w0, baseline=c_fix, initial=a0_fix, warn=False)
+        if srel > 0:
+            # the proportional part is a property of the expected reading, so it is taken at
+            # the fitted absorbance: taken at each reading's own (noisy) value it gives the
+            # readings that noise pushed down more weight and biases the fit
+            sig_A = np.sqrt(
+                s0**2 + (srel * (decay_curve(t_nom, *fit0.params[0]) * l_nom + off_val)) ** 2
+            )
+            w0 = lu**2 / sig_A[uj] ** 2
+            fit0 = fit_decay(
+                tu,
+                au,
+                weights=w0,
+                baseline=c_fix,
+                initial=a0_fix,
+                start=fit0.params[0],
+                warn=False,
+            )
         # the noise floor is applied to the fitted absorbance, not to each reading: selecting
         # readings by their own (noisy) value would keep the high ones and bias the fit
         c, a0, k = fit0.params[0]
@@ -480,10 +497,21 @@ class _Builder:
                 warn=False,
             )
             c, a0, k = fit0.params[0]
-        dadt = -k * (a0 - c) * np.exp(-k * tu) * lu
-        sig_eff = np.sqrt(sig_A[uj] ** 2 + (dadt * u_jit) ** 2)
-        w = lu**2 / sig_eff**2
-        fit1 = fit_decay(tu, au, weights=w, baseline=c_fix, initial=a0_fix, start=fit0.params[0])
+        fit1 = fit0
+        # the weights at the nominal solution: the jitter through the fitted slope, and the
+        # noise model's proportional part at the fitted absorbance, for which one more pass
+        # evaluates them at the solution they give (the change is far below u)
+        for _ in range(1 + (srel > 0)):
+            c, a0, k = fit1.params[0]
+            if srel > 0:
+                A_fit = decay_curve(t_nom, c, a0, k) * l_nom + off_val
+                sig_A = np.sqrt(s0**2 + (srel * A_fit) ** 2)
+            dadt = -k * (a0 - c) * np.exp(-k * tu) * lu
+            sig_eff = np.sqrt(sig_A[uj] ** 2 + (dadt * u_jit) ** 2)
+            w = lu**2 / sig_eff**2
+            fit1 = fit_decay(
+                tu, au, weights=w, baseline=c_fix, initial=a0_fix, start=fit1.params[0]
+            )
         if not fit1.converged[0]:
             self.problems.append(
                 Problem(
@@ -746,6 +774,16 @@ def build_batch_chain(exp: Experiment) -> BatchChain:
     b = _Builder(exp)
     for run in section.runs:
         b.run(run, section)
+    if section.noise_model == "proportional" and exp.spectrophotometer.noise_relative.value == 0:
+        b.findings.append(
+            Finding(
+                "warning",
+                "noise model",
+                'noise_model = "proportional" but spectrophotometer.noise_relative is 0, so the'
+                " readings' noise is constant (noise_sd alone); give noise_relative (the"
+                ' proportional part of the SD, e.g. 0.005) or set noise_model = "constant".',
+            )
+        )
     chem = exp.chemistry
     Ea_col: Column | None = None
     if chem is not None and chem.activation_energy is not None:
