@@ -48,7 +48,7 @@ def main(argv: list[str] | None = None) -> int:
         write_demo(folder, seed=args.seed)
         res = analyze(
             folder / "experiment.toml",
-            settings=Settings(montecarlo=False, plan=False, seed=args.seed),
+            settings=Settings(montecarlo=False, plan=False, mcmc=False, seed=args.seed),
         )
         ch = res.chains["batch"]
         walls, cpus = [], []

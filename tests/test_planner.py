@@ -154,3 +154,81 @@ def test_class_a_case_is_stated_at_the_analysis_coverage(tmp_path):
     want = class_a.chains["batch"].linear.estimate(name).U
     assert qp.U > want
     assert case.U_new == pytest.approx(want, rel=1e-9)
+
+
+def test_schedule_uses_the_fitted_model_and_the_noise_model(tmp_path):
+    """With the baseline held at zero and proportional noise, the advice's u(k') is that of
+    the two-parameter fit the analysis makes: the known-sigma covariance of
+    scipy.optimize.curve_fit (general-purpose reference) of A0 exp(-k' t) with
+    sigma^2 = noise_sd^2 + (noise_relative A)^2 + (dA/dt)^2 u(jitter)^2 at the fitted
+    curve.  (The three-parameter information used before gave a larger u(k') and advised
+    longer spans than the fitted model needs.)"""
+    from batch_helpers import edit_toml, set_batch_option
+
+    from uqreport.demo import DemoScenario
+    from uqreport.planner import _schedule
+
+    path = demo_study(tmp_path / "demo", seed=7, scenario=DemoScenario(baseline=0.0))
+    set_batch_option(path, "baseline", '"zero"')
+    set_batch_option(path, "noise_model", '"proportional"')
+    set_batch_option(path, "noise_source", '"spec"')
+    edit_toml(path, "noise_sd = 0.002", "noise_sd = 0.002\nnoise_relative = 0.005")
+    res = analyze(path, settings=Settings(montecarlo=False, mcmc=False, plan=False))
+    fits = {f.name: f for f in res.chains["batch"].chain.fits}
+    advice = {s.run: s for s in _schedule(res.experiment, fits)}
+    for name, fit in fits.items():
+        s = advice[name]
+        t = fit.times[fit.used] + fit.time_origin
+        _, a0, k = fit.params
+        y = decay_curve(t, 0.0, a0, k)
+        slope = -k * a0 * np.exp(-k * t)
+        sig = np.sqrt(0.002**2 + (0.005 * y) ** 2 + (slope * 2.0) ** 2)
+        _, pcov = curve_fit(
+            lambda tt, a_, k_: decay_curve(tt, 0.0, a_, k_),
+            t,
+            y,
+            p0=[a0, k],
+            sigma=sig,
+            absolute_sigma=True,
+        )
+        assert s.u_current == pytest.approx(np.sqrt(pcov[1, 1]), rel=1e-3), name
+        assert s.u_optimal <= s.u_current
+
+
+def test_verdict_states_U_of_the_quantity_to_two_significant_digits(demo_result):
+    """The verdict's numbers are expanded uncertainties to two significant digits with
+    trailing zeros kept (GUM 7.2.6: 0.020, not 0.02), and name U of the quantity."""
+    from uqreport.planner import _fmt
+
+    assert [_fmt(x) for x in (0.02, 0.0036, 0.0996, 0.015, 15.3)] == [
+        "0.020",
+        "0.0036",
+        "0.10",
+        "0.015",
+        "15",
+    ]
+    qp = demo_result.plan.quantities["second_order_rate_constant"]
+    assert f"reduces U(k) from {_fmt(qp.U)} to" in qp.verdict
+
+
+def test_simulated_design_reproduces_the_fit_with_a_blank_offset(tmp_path):
+    """The designs the planner compares are noise-free readings on the fitted curves: refitted
+    in the current design they must give back the fitted k' exactly (least squares on exact
+    data).  The curves are net of the absorbance offsets, so the readings written must
+    include them: with a blank offset of 0.010 A and the baseline held at zero, readings
+    without it gave a k' 6-10 % off."""
+    from batch_helpers import edit_toml, set_batch_option
+
+    from uqreport.chains.batch import build_batch_chain
+    from uqreport.demo import DemoScenario
+    from uqreport.planner import _synthetic_runs, _with_runs
+
+    path = demo_study(tmp_path / "demo", seed=7, scenario=DemoScenario(baseline=0.0))
+    set_batch_option(path, "baseline", '"zero"')
+    edit_toml(path, "offset = { value = 0,", "offset = { value = 0.010,")
+    res = analyze(path, settings=Settings(montecarlo=False, mcmc=False, plan=False))
+    fits = {f.name: f for f in res.chains["batch"].chain.fits}
+    exp = res.experiment
+    again = build_batch_chain(_with_runs(exp, _synthetic_runs(exp, fits)))
+    for fit in again.fits:
+        assert fit.params[2] == pytest.approx(fits[fit.name].params[2], rel=1e-7), fit.name

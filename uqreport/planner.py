@@ -194,6 +194,14 @@ def _first_cuvette(run, fit: RunFit, exp: Experiment) -> str:
     return next(iter(exp.cuvettes))
 
 
+def _nominal_offset(exp: Experiment, run) -> float:
+    """The absorbance offsets' estimates for a run's readings (blank and photometric)."""
+    offset = exp.blanks[run.blank].offset.value if run.blank else 0.0
+    if exp.spectrophotometer.photometric_accuracy is not None:
+        offset += exp.spectrophotometer.photometric_accuracy.value
+    return offset
+
+
 def _synthetic_runs(
     exp: Experiment, fits: dict[str, RunFit], *, factor: float = 1.0, extra_runs: int = 0
 ):
@@ -205,7 +213,8 @@ def _synthetic_runs(
         t_used = fit.times[fit.used]
         n_new = max(round(t_used.size * factor), 5)
         times = np.linspace(t_used[0], t_used[-1], n_new)
-        A = fit.curve(times)
+        # the fitted curve is net of the offsets; the readings include them
+        A = fit.curve(times) + _nominal_offset(exp, run)
         cuv = _first_cuvette(run, fit, exp)
         runs.append(replace(run, table=_synthetic_table(run.table, times, A, cuv), cuvette=cuv))
     if extra_runs:
@@ -231,44 +240,74 @@ def _U(lin: LinearResult, name: str) -> float:
 
 
 # -- schedule ---------------------------------------------------------------------------
-def _u_rate(times, c, a0, k, sigma, u_jit) -> float:
-    """u(k') of the three-parameter decay fit from the Fisher information (known sigma)."""
+def _u_rate(
+    times,
+    c,
+    a0,
+    k,
+    sigma,
+    u_jit,
+    *,
+    relative: float = 0.0,
+    offset: float = 0.0,
+    scale: float = 1.0,
+    free: tuple[bool, bool] = (True, True),
+) -> float:
+    """u(k') of the decay fit from the Fisher information (known sigma).
+
+    ``free`` says whether the baseline and the initial value are fitted (their columns enter
+    the information).  The readings' SD is that of the analysis: sqrt(sigma^2 + (relative x
+    A)^2) at the fitted absorbance A (``offset`` added back), with the jitter as effective
+    variance, all times ``scale`` (the residual scatter when the noise came from it).
+    """
     e = np.exp(-k * times)
     d = a0 - c
-    J = np.column_stack([1.0 - e, e, -d * times * e])
-    var = sigma**2 + (k * d * e * u_jit) ** 2
+    cols = [1.0 - e] if free[0] else []
+    if free[1]:
+        cols.append(e)
+    cols.append(-d * times * e)
+    J = np.column_stack(cols)
+    A = c + d * e + offset
+    var = (sigma**2 + (relative * A) ** 2 + (k * d * e * u_jit) ** 2) * scale**2
     F = (J / var[:, None]).T @ J
     try:
-        return float(math.sqrt(np.linalg.inv(F)[2, 2]))
+        return float(math.sqrt(np.linalg.inv(F)[-1, -1]))
     except (np.linalg.LinAlgError, ValueError):
         return math.inf
 
 
 def _schedule(exp: Experiment, fits: dict[str, RunFit]) -> tuple[ScheduleAdvice, ...]:
     out = []
-    s0 = exp.spectrophotometer.noise_sd.value
-    for run in exp.batch.runs:
+    sp = exp.spectrophotometer
+    batch = exp.batch
+    srel = sp.noise_relative.value if batch.noise_model == "proportional" else 0.0
+    # the fitted model: which of baseline and initial value the analysis fits
+    free = (batch.baseline == "fitted", batch.initial == "free")
+    for run in batch.runs:
         f = fits[run.name]
         t = f.times[f.used] + f.time_origin
         if t.size < 5:
             continue
         c, a0, k = f.params
-        sigma = s0 * f.noise_scale
+        # the fitted curve is net of the offsets; the proportional noise acts on the reading
+        offset = _nominal_offset(exp, run)
         u_jit = run.jitter.u if run.jitter is not None else 0.0
         n = t.size
         t0 = float(t[0])
-        u_now = _u_rate(t, c, a0, k, sigma, u_jit)
+        sigma = sp.noise_sd.value
+        opts = {"relative": srel, "offset": offset, "scale": f.noise_scale, "free": free}
+        u_now = _u_rate(t, c, a0, k, sigma, u_jit, **opts)
         half = math.log(2.0) / k
 
-        def u_of(log_dt, n=n, t0=t0, c=c, a0=a0, k=k, sigma=sigma, u_jit=u_jit):
+        def u_of(log_dt, n=n, t0=t0, c=c, a0=a0, k=k, sigma=sigma, u_jit=u_jit, opts=opts):
             dt = math.exp(log_dt)
-            return _u_rate(t0 + dt * np.arange(n), c, a0, k, sigma, u_jit)
+            return _u_rate(t0 + dt * np.arange(n), c, a0, k, sigma, u_jit, **opts)
 
         dt_now = float(np.median(np.diff(t)))
         lo, hi = math.log(max(1.0, 0.1 * dt_now)), math.log(20.0 * dt_now)
         # keep the last reading above the noise floor on the fitted curve (the analysis would
         # exclude readings below it)
-        floor = exp.batch.noise_floor.value
+        floor = exp.batch.noise_floor.value - offset  # on the curve net of the offsets
         if c < floor < a0:
             t_floor = math.log((a0 - c) / (floor - c)) / k
             if t_floor > t0:
@@ -307,7 +346,14 @@ def _schedule(exp: Experiment, fits: dict[str, RunFit]) -> tuple[ScheduleAdvice,
 
 # -- the plan ---------------------------------------------------------------------------
 def _fmt(x: float) -> str:
-    return f"{x:.2g}"
+    """An expanded uncertainty to two significant digits, trailing zeros kept (GUM 7.2.6:
+    0.020, not 0.02)."""
+    if not math.isfinite(x) or x == 0.0:
+        return f"{x:g}"
+    d = 1 - math.floor(math.log10(abs(x)))
+    if abs(round(x, d)) >= 10.0 ** (2 - d):  # 0.0996 -> 0.10
+        d -= 1
+    return f"{round(x, d):.{max(d, 0)}f}"
 
 
 def _verdict(name: str, unit: str, ch: ChainResult, U: float, cases: list[PlanCase]) -> str:
@@ -322,7 +368,7 @@ def _verdict(name: str, unit: str, ch: ChainResult, U: float, cases: list[PlanCa
     text = f"The largest contributor to u({label}) is {top.group} ({100 * top.share:.0f} %)"
     if best_own is not None and best_own.reduction > 0:
         text += (
-            f"; {best_own.description} reduces U from {_fmt(U)} to"
+            f"; {best_own.description} reduces U({label}) from {_fmt(U)} to"
             f" {_fmt(best_own.U_new)}{unit_s} ({best_own.reduction_percent:.0f} %)."
         )
     else:
@@ -331,7 +377,8 @@ def _verdict(name: str, unit: str, ch: ChainResult, U: float, cases: list[PlanCa
     if best_own is None or best.case != best_own.case or best.group != best_own.group:
         text += (
             f" The largest single gain comes from {best.description}"
-            f" (U {_fmt(U)} to {_fmt(best.U_new)}{unit_s}, {best.reduction_percent:.0f} %)."
+            f" (U({label}) {_fmt(U)} to {_fmt(best.U_new)}{unit_s},"
+            f" {best.reduction_percent:.0f} %)."
         )
     return text
 
