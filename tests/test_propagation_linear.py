@@ -221,6 +221,14 @@ def test_asymmetric_correlation_matrix_is_an_input_error():
         InputSet.from_matrix([a, b], [[1.0, 0.5], [0.4, 1.0]])
 
 
+def test_correlation_matrix_with_a_non_unit_diagonal_is_an_input_error():
+    """A covariance matrix passed as a correlation matrix: r(x, x) = 1 by definition (GUM
+    C.3.6), so the diagonal entry is named."""
+    a, b = InputQuantity("a", 1.0, 0.1), InputQuantity("b", 1.0, 0.2)
+    with pytest.raises(InputError, match=r"r\[1,1\] = 0\.04 on its diagonal \(input 'b'\)"):
+        InputSet.from_matrix([a, b], [[1.0, 0.01], [0.01, 0.04]])
+
+
 def test_model_output_shape_is_checked():
     ins = InputSet([InputQuantity("a", 1.0, 0.1)])
     bad = MeasurementModel(ins, ("y", "z"), lambda X: X[:, :1])

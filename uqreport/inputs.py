@@ -334,7 +334,12 @@ class InputSet:
                 f" {r[j, i]}. Fix: make the matrix symmetric."
             )
         if not np.allclose(np.diag(r), 1.0, rtol=0, atol=1e-12):
-            raise InputError("correlation matrix must have ones on its diagonal.")
+            i = int(np.argmax(np.abs(np.diag(r) - 1.0)))
+            raise InputError(
+                f"correlation matrix has r[{i},{i}] = {float(r[i, i])!r} on its diagonal (input"
+                f" '{inputs[i].name}'); a quantity's correlation with itself is 1. Fix: put 1"
+                " on the diagonal (a covariance matrix must be divided by u_i u_j first)."
+            )
         pairs = {
             (inputs[i].name, inputs[j].name): float(r[i, j])
             for i in range(p)
