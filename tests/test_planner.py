@@ -232,3 +232,24 @@ def test_simulated_design_reproduces_the_fit_with_a_blank_offset(tmp_path):
     again = build_batch_chain(_with_runs(exp, _synthetic_runs(exp, fits)))
     for fit in again.fits:
         assert fit.params[2] == pytest.approx(fits[fit.name].params[2], rel=1e-7), fit.name
+
+
+def test_replicate_run_is_at_the_middle_concentration(tmp_path):
+    """ "One more replicate run at the middle concentration": the run replicated is the one
+    with the median [OH], whatever the runs are called (runs named c, a, b at 0.02, 0.04
+    and 0.06 mol/L: the replicate is of run a; by name it would have been of b)."""
+    from uqreport.planner import _synthetic_runs
+
+    path = demo_study(tmp_path / "demo", seed=7)
+    text = path.read_text(encoding="utf-8")
+    for old, new in (("r1", "c"), ("r2", "a"), ("r3", "b")):
+        text = text.replace(f'name = "{old}"', f'name = "{new}"')
+    path.write_text(text, encoding="utf-8")
+    res = analyze(path, settings=Settings(montecarlo=False, mcmc=False, plan=False))
+    lin = res.chains["batch"].linear
+    oh = {r: lin.values[lin.index(f"hydroxide_concentration/{r}")] for r in "abc"}
+    assert oh["c"] < oh["a"] < oh["b"]
+    fits = {f.name: f for f in res.chains["batch"].chain.fits}
+    runs = _synthetic_runs(res.experiment, fits, extra_runs=1, concentrations=oh)
+    assert runs[-1].name == "a_replicate1"
+    assert runs[-1].hydroxide_volume == next(r for r in runs if r.name == "a").hydroxide_volume

@@ -203,10 +203,16 @@ def _nominal_offset(exp: Experiment, run) -> float:
 
 
 def _synthetic_runs(
-    exp: Experiment, fits: dict[str, RunFit], *, factor: float = 1.0, extra_runs: int = 0
+    exp: Experiment,
+    fits: dict[str, RunFit],
+    *,
+    factor: float = 1.0,
+    extra_runs: int = 0,
+    concentrations: dict[str, float] | None = None,
 ):
     """The batch runs with noise-free readings on their fitted curves, ``factor`` times as
-    many over the same span (one cuvette per run), plus replicate runs."""
+    many over the same span (one cuvette per run), plus replicate runs of the run at the
+    middle excess-reagent concentration (``concentrations``: run name -> [OH])."""
     runs = []
     for run in exp.batch.runs:
         fit = fits[run.name]
@@ -218,7 +224,8 @@ def _synthetic_runs(
         cuv = _first_cuvette(run, fit, exp)
         runs.append(replace(run, table=_synthetic_table(run.table, times, A, cuv), cuvette=cuv))
     if extra_runs:
-        ranked = sorted(runs, key=lambda r: r.name)
+        conc = concentrations or {}
+        ranked = sorted(runs, key=lambda r: (conc.get(r.name, 0.0), r.name))
         middle = ranked[len(ranked) // 2]
         for i in range(extra_runs):
             runs.append(replace(middle, name=f"{middle.name}_replicate{i + 1}"))
@@ -509,8 +516,13 @@ def _batch_cases(
         f"taking {label} per run over the same time span",
     )
     k = settings.extra_runs
+    oh = {
+        r: float(lin.values[lin.index(f"hydroxide_concentration/{r}")])
+        for r in fits
+        if f"hydroxide_concentration/{r}" in lin.output_names
+    }
     simulated(
-        _synthetic_runs(exp, fits, extra_runs=k),
+        _synthetic_runs(exp, fits, extra_runs=k, concentrations=oh),
         "replicate runs",
         "more runs",
         f"adding {k} replicate run{'s' if k > 1 else ''} at the middle concentration",
