@@ -844,3 +844,21 @@ def test_t_distribution_with_three_degrees_of_freedom_is_accepted():
                            "distribution": "t"}, key="x", dimension="concentration",
                           mode="uncertain", report=lambda *a: msgs.append(a))
     assert not msgs and spec is not None
+
+
+def test_unreadable_experiment_file_is_a_problem_not_an_internal_error(tmp_path, monkeypatch):
+    # a file the user may not read (PermissionError, an OSError) is named with the reason
+    path = tmp_path / "experiment.toml"
+    path.write_text("format_version = 1\n", encoding="utf-8")
+    real = Path.read_bytes
+
+    def denied(self):
+        if self == path:
+            raise PermissionError(13, "Permission denied")
+        return real(self)
+
+    monkeypatch.setattr(Path, "read_bytes", denied)
+    (p,) = problems(path)
+    assert p.where == str(path)
+    assert p.message == "the experiment file cannot be read (Permission denied)."
+    assert "readable" in p.fix

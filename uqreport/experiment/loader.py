@@ -149,7 +149,14 @@ def _read(path: Path) -> tuple[dict[str, Any], bytes]:
         raise ExperimentError([Problem(str(path), f"the experiment file {what}.",
                                        "give the path of an experiment.toml file (or of the"
                                        " folder holding it).")])
-    data = path.read_bytes()
+    try:
+        data = path.read_bytes()
+    except OSError as exc:  # permission denied, a device or network error, ...
+        raise ExperimentError([Problem(str(path), f"the experiment file cannot be read"
+                                       f" ({exc.strerror or type(exc).__name__}).",
+                                       "check that the file is readable by you (its"
+                                       " permissions) and not locked by another program.")]
+                              ) from None
     try:
         text = data.decode("utf-8-sig")
     except UnicodeDecodeError as exc:
