@@ -283,3 +283,25 @@ def test_an_output_over_an_input_table_exits_2_before_the_analysis(
     err = capsys.readouterr().err
     assert "fits.csv would overwrite an input file" in err and "Traceback" not in err
     assert _hashes(src) == before
+
+
+def test_a_refused_write_is_named_not_called_a_bug(monkeypatch, capsys, tmp_path):
+    """A full disk (ENOSPC, an OSError) while writing the outputs: exit 1 with the system's
+    reason and the file, not "a bug in uqreport", and no traceback."""
+    import errno
+
+    import uqreport.results
+
+    def full(path, text):
+        raise OSError(errno.ENOSPC, "No space left on device", str(path))
+
+    monkeypatch.setattr(uqreport.results, "atomic_write_text", full)
+    out = tmp_path / "out"
+    code = cli.main(
+        ["analyze", str(DATA / "good"), "--out", str(out), "--draws", "2000", "--no-mcmc",
+         "--no-report", "--quiet"]
+    )
+    assert code == 1
+    err = capsys.readouterr().err
+    assert "No space left on device" in err and "results.json" in err
+    assert "bug" not in err and "Traceback" not in err

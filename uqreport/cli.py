@@ -435,6 +435,19 @@ def main(argv: Sequence[str] | None = None) -> int:
         except (OSError, ValueError, AttributeError):
             pass
         return EXIT_OK
+    except OSError as exc:
+        # the system refused a read or write (disk full, permissions changed meanwhile, a
+        # network folder gone): not a bug of ours and not a problem of the input's content
+        if args.debug:
+            traceback.print_exc()
+        where = f" ({exc.filename})" if exc.filename else ""
+        print(
+            f"uqreport: error: the system refused a file operation{where}:"
+            f" {exc.strerror or exc}. Fix: check the free space and the permissions of the"
+            " folders involved, then run the command again.",
+            file=sys.stderr,
+        )
+        return EXIT_INTERNAL
     except Exception as exc:  # an internal error: say so plainly, traceback on request
         if args.debug:
             traceback.print_exc()
