@@ -305,3 +305,17 @@ def test_a_refused_write_is_named_not_called_a_bug(monkeypatch, capsys, tmp_path
     err = capsys.readouterr().err
     assert "No space left on device" in err and "results.json" in err
     assert "bug" not in err and "Traceback" not in err
+
+
+@pytest.mark.parametrize(
+    "case", sorted(p.name for p in (DATA / "bad").iterdir() if p.is_dir())
+)
+def test_every_bad_case_exits_2_from_check_with_a_fix(case, capsys):
+    """Each case of the bad-input corpus through `uqreport check`: exit 2, every problem on
+    stderr with its place and its fix, nothing on stdout, no traceback."""
+    assert cli.main(["check", str(DATA / "bad" / case)]) == 2
+    captured = capsys.readouterr()
+    assert captured.out == ""
+    lines = [ln for ln in captured.err.splitlines() if ln.startswith("  - ")]
+    assert lines and all(" Fix: " in ln for ln in lines), captured.err
+    assert "Traceback" not in captured.err and "internal error" not in captured.err
