@@ -13,8 +13,10 @@ from uqreport.bayes.likelihoods import (
     BlockDesign,
     LinearPrior,
     explicit_loglik,
+    gaussian_logpdf,
     laplace_student,
     marginal_gaussian,
+    student_logpdf,
 )
 from uqreport.bayes.priors import Prior, between_run_prior, noise_scale_prior, prior_from_input
 from uqreport.errors import InputError
@@ -57,6 +59,63 @@ def test_prior_from_input_keeps_the_stated_distribution():
     assert prior_from_input(qt) == Prior("t", 8.0, 3.0, 4.0)
     with pytest.raises(InputError, match=r"input 'x' has u = 0\.0: an exact value"):
         prior_from_input(InputQuantity("x", 1.0, 0.0))
+
+
+@pytest.mark.parametrize(
+    ("distribution", "divisor"),
+    [("rectangular", math.sqrt(3.0)), ("triangular", math.sqrt(6.0)), ("arcsine", math.sqrt(2.0))],
+)
+def test_prior_from_input_given_by_u_recovers_the_half_width(distribution, divisor):
+    """A bounded input stated by its standard uncertainty u keeps the support of half-width
+    a = u x divisor (GUM 4.3.7 and 4.3.9: u = a/sqrt 3 rectangular, a/sqrt 6 triangular;
+    JCGM 101 6.4.6: u = a/sqrt 2 arcsine), and the prior's sd is u again (scipy.stats)."""
+    q = InputQuantity("tolerance", 2.0, 0.01, distribution=distribution)
+    p = prior_from_input(q)
+    assert p.kind == distribution
+    assert p.support == pytest.approx((2.0 - 0.01 * divisor, 2.0 + 0.01 * divisor), rel=1e-12)
+    ref = {
+        "rectangular": stats.uniform(2.0 - 0.01 * divisor, 0.02 * divisor),
+        "triangular": stats.triang(0.5, loc=2.0 - 0.01 * divisor, scale=0.02 * divisor),
+        "arcsine": stats.arcsine(loc=2.0 - 0.01 * divisor, scale=0.02 * divisor),
+    }[distribution]
+    assert p.sd == pytest.approx(ref.std(), rel=1e-12)
+    assert p.sd == pytest.approx(0.01, rel=1e-12)
+    assert not np.isfinite(p.logpdf(2.0 + 0.0101 * divisor))
+
+
+def test_log_halfnormal_prior_is_normalised_with_the_stated_sd():
+    """The density of ln tau for a half-normal tau integrates to one and has sd pi/sqrt 8
+    (the variance of ln|z| for a standard normal z is pi^2/8, from memory), checked by
+    scipy.integrate.quad; its draws follow it (Kolmogorov-Smirnov against the transformed
+    scipy.stats.halfnorm distribution function)."""
+    p = between_run_prior(0.1, log_scale=True)
+
+    def dens(u):
+        return math.exp(float(p.logpdf(np.array(u))))
+
+    lo, hi = math.log(0.1) - 25.0, math.log(0.1) + 3.0
+    total, _ = integrate.quad(dens, lo, hi, limit=200)
+    mean, _ = integrate.quad(lambda u: u * dens(u), lo, hi, limit=200)
+    second, _ = integrate.quad(lambda u: u * u * dens(u), lo, hi, limit=200)
+    assert total == pytest.approx(1.0, abs=1e-8)
+    assert math.sqrt(second - mean**2) == pytest.approx(p.sd, rel=1e-6)
+    x = p.sample(20_000, np.random.default_rng(9))
+    ks = stats.kstest(np.exp(x), stats.halfnorm(0.0, 0.1).cdf)
+    assert ks.pvalue > 0.01
+
+
+def test_likelihood_terms_match_scipy():
+    """The elementwise Gaussian and Student t log densities equal scipy.stats.norm and
+    scipy.stats.t (scale sd, any dof), and a t with very many degrees of freedom is the
+    Gaussian (the t tends to the normal as nu grows, from memory)."""
+    r = np.linspace(-0.03, 0.03, 13)
+    sd = np.full_like(r, 0.004)
+    np.testing.assert_allclose(gaussian_logpdf(r, sd), stats.norm(0.0, 0.004).logpdf(r))
+    for nu in (1.0, 2.5, 4.0, 30.0):
+        np.testing.assert_allclose(
+            student_logpdf(r, sd, nu), stats.t(nu, 0.0, 0.004).logpdf(r), rtol=1e-12
+        )
+    np.testing.assert_allclose(student_logpdf(r, sd, 1e9), gaussian_logpdf(r, sd), rtol=1e-6)
 
 
 def test_model_priors():

@@ -9,12 +9,14 @@ import warnings
 import emcee
 import numpy as np
 import pytest
+from scipy import stats
 
 from uqreport.bayes.diagnostics import (
     check_acceptance,
     equal_tailed,
     hdi,
     integrated_time,
+    predictive_check,
     split_rhat,
 )
 from uqreport.bayes.sampler import default_walkers, run_ensembles, seed_sampler
@@ -55,6 +57,13 @@ def test_conjugate_normal_mean_known_sigma():
     run = run_ensembles(logp, np.array([x.mean()]), np.array([sd]), rng=3)
     assert run.converged
     assert run.steps > 50 * run.tau.max()
+    # the stopping rule as stated: the last block's largest-tau estimate moved by < 1 % and
+    # the chain was longer than 50 of it; the burn-in is a few tau
+    (_, t1), (n2, t2) = run.tau_history[-2:]
+    assert n2 == run.steps and abs(t2 - t1) < 0.01 * t2 and n2 > 50 * t2
+    assert run.steps - run.discard > 50 * run.tau.max()  # the kept part on its own estimate
+    assert 3 * run.tau.max() <= run.discard < run.steps // 2 + 1
+    assert run.walkers == default_walkers(1) and run.walkers >= 2 * 1
     draws = run.kept().reshape(-1, 1)
     _mc_check(draws, run.ess(), np.array([mean]), np.array([sd]))
     # equal-tailed 95 % interval of the normal posterior: mean -/+ 1.959964 sd (scipy-free
@@ -270,3 +279,66 @@ def test_progress_bar_only_when_asked(capsys):
         assert capsys.readouterr().err == ""
         run_ensembles(logp, np.zeros(2), np.ones(2), rng=1, max_steps=200, progress=True)
     assert "MCMC" in capsys.readouterr().err
+
+
+def test_predictive_check_against_scipy():
+    """With every posterior draw at the true parameters the check reduces to the sampling
+    distribution: tail probabilities 2 P(Z > |z|) (scipy.stats.norm and scipy.stats.t), lppd
+    the sum of the log densities, about 5 % of readings outside the 95 % band
+    (Binomial(2000, 0.05): 3.0-7.0 % is about 4.6 binomial sd), and a reading 8 sd off
+    named by table and line (below the Bonferroni bound 0.05/n), its tail probability
+    resolved (1.2e-15; taken as 1 - F it had no digits left)."""
+    rng = np.random.default_rng(31)
+    n, D = 2000, 200
+    mu = np.linspace(0.1, 0.8, n)
+    sd = np.full(n, 0.004)
+    y = mu + sd * rng.standard_normal(n)
+    y[17] = mu[17] + 8.0 * sd[17]
+    kw = dict(runs=["r1"] * n, tables=["batch_r1.csv"] * n, lines=list(range(2, n + 2)))
+    means, sds = np.broadcast_to(mu, (D, n)), np.broadcast_to(sd, (D, n))
+    g = predictive_check(y, means, sds, rng=rng, **kw)
+    z = (y - mu) / sd
+    np.testing.assert_allclose(g.p_values, 2.0 * stats.norm.sf(np.abs(z)), rtol=1e-9, atol=1e-15)
+    assert g.log_predictive_density == pytest.approx(
+        float(np.sum(stats.norm.logpdf(y, mu, sd))), rel=1e-12
+    )
+    assert 0.03 <= g.share_outside <= 0.07
+    assert g.expected_share == pytest.approx(0.05, rel=1e-9)  # no leverage: 1 - coverage
+    assert [(o.table, o.line) for o in g.outliers] == [("batch_r1.csv", 19)]
+    t = predictive_check(y, means, sds, rng=rng, likelihood="student", dof=4.0, **kw)
+    np.testing.assert_allclose(t.p_values, 2.0 * stats.t.sf(np.abs(z), 4.0), rtol=1e-9)
+    assert t.log_predictive_density == pytest.approx(
+        float(np.sum(stats.t.logpdf(y, 4.0, mu, sd))), rel=1e-12
+    )
+
+
+def test_predictive_check_expected_share_allows_for_leverage():
+    """Linear regression with known sigma and a flat prior, exact posterior draws
+    beta ~ N(beta_hat, sigma^2 (X'X)^-1): each reading's residual has variance
+    (1 - h) sigma^2 and its predictive distribution (1 + h) sigma^2 (standard least-squares
+    results, from memory), so fewer than 5 % of readings fall outside the 95 % band (the
+    posterior predictive check is conservative, Gelman et al., BDA3 section 6.3).  Over 300
+    simulated data sets the share outside matches expected_share (2.0 % for 4 parameters
+    and 20 readings), within about 4 binomial standard errors of 6000 readings."""
+    rng = np.random.default_rng(77)
+    t = np.linspace(0.0, 1.0, 20)
+    X = np.vander(t, 4)
+    sigma, beta = 0.01, np.array([0.3, -0.2, 0.5, 0.1])
+    cov = sigma**2 * np.linalg.inv(X.T @ X)
+    L = np.linalg.cholesky(cov)
+    n, D = t.size, 400
+    kw = dict(runs=["r1"] * n, tables=["t.csv"] * n, lines=list(range(n)))
+    outside, expected = [], []
+    for _ in range(300):  # loop over simulated data sets
+        y = X @ beta + sigma * rng.standard_normal(n)
+        b_hat = np.linalg.lstsq(X, y, rcond=None)[0]
+        draws = b_hat + rng.standard_normal((D, 4)) @ L.T
+        res = predictive_check(y, draws @ X.T, np.full((D, n), sigma), rng=rng, **kw)
+        outside.append(res.share_outside)
+        expected.append(res.expected_share)
+    h = np.einsum("ij,jk,ik->i", X, np.linalg.inv(X.T @ X), X)
+    exact = float(np.mean(2.0 * stats.norm.sf(1.959964 * np.sqrt((1 + h) / (1 - h)))))
+    assert np.mean(expected) == pytest.approx(exact, rel=0.05)
+    se = math.sqrt(exact * (1 - exact) / (300 * n))
+    assert abs(np.mean(outside) - exact) < 4.0 * se + 0.002
+    assert np.mean(outside) < 0.03

@@ -33,10 +33,10 @@ from scipy import stats
 
 from .._numeric import RandomLike, as_generator
 from ..chains.batch import BatchChain
-from ..errors import ConvergenceWarning, InputError
+from ..errors import ConvergenceWarning, InputError, ValidationWarning
 from .batch_model import BatchPosterior
 from .batch_setup import build_batch_posterior
-from .diagnostics import check_acceptance, predictive_check, split_rhat
+from .diagnostics import PredictiveCheck, check_acceptance, predictive_check, split_rhat
 from .results import (
     PosteriorResult,
     PosteriorSettings,
@@ -338,6 +338,32 @@ def batch_posterior(
     return _assemble(chain, post, run, gen, settings, acc_ok, messages)
 
 
+def _outlier_message(ppc: PredictiveCheck, likelihood: str, *, shown: int = 5) -> str:
+    """Plain words naming the readings the predictive check flags ("" when none)."""
+    if not ppc.outliers:
+        return ""
+    items = [
+        f"{o.table} line {o.line} (run {o.run}: {o.observed:.6g} against a predicted"
+        f" {o.predicted:.4g}, p = {o.p_value:.2g})"
+        for o in ppc.outliers[:shown]
+    ]
+    more = len(ppc.outliers) - shown
+    if more > 0:
+        items.append(f"and {more} more")
+    head = (
+        f"posterior predictive check: {len(ppc.outliers)} reading(s) lie far outside their"
+        f" predictive distribution (tail probability below 0.05/{ppc.n_readings}"
+        f" = {ppc.outlier_threshold:.2g}): " + "; ".join(items) + "."
+    )
+    if likelihood == "student":
+        return head + " The Student t likelihood down-weights them. Fix: check those readings."
+    return (
+        head + " Fix: check those readings (a bubble, a scratched cell); the Student t"
+        " likelihood (likelihood = 'student', --robust on the command line) down-weights"
+        " them instead of inflating the run's noise."
+    )
+
+
 def _assemble(
     chain: BatchChain,
     post: BatchPosterior,
@@ -364,6 +390,10 @@ def _assemble(
         likelihood=post.likelihood,
         dof=post.dof,
     )
+    msg = _outlier_message(ppc, post.likelihood)
+    if msg:
+        messages.append(msg)
+        warnings.warn(msg, ValidationWarning, stacklevel=3)
     chain_steps = run.steps - run.discard
     ess = run.ess()
     rhat = split_rhat(kept) if E >= 2 else None
@@ -399,6 +429,20 @@ def _assemble(
             params[nm] = s
         else:
             quantities[nm] = s
+    short = [nm for nm, q in {**params, **quantities}.items() if not q.converged]
+    if run.converged and short:
+        msg = (
+            "MCMC: the run met its convergence rule, but "
+            + ", ".join(f"'{n}'" for n in short[:8])
+            + (f" and {len(short) - 8} more" if len(short) > 8 else "")
+            + f" did not on their own (the kept chain of {chain_steps} steps is not longer"
+            f" than {run.tol:g} times the autocorrelation time estimated from their draws"
+            + (", or split R-hat is not below 1.01" if E >= 2 else "")
+            + "); they are marked converged = false. Fix: rerun with another seed, or with"
+            " more ensembles (chains) for more draws, and compare."
+        )
+        messages.append(msg)
+        warnings.warn(msg, ConvergenceWarning, stacklevel=3)
     diag = SamplerDiagnostics(
         converged=run.converged,
         tau={n: float(t) for n, t in zip(post.names, run.tau, strict=True)},

@@ -299,6 +299,13 @@ def build_batch_posterior(
             )
         # the order of lin_idx follows lin_names (run by run, b then g)
         index["linear"] = np.array(lin_idx, dtype=np.intp)
+    if hierarchical:
+        notes.append(
+            "hierarchical posterior: the runs' k'_r are pooled towards k~ [OH]_r, i.e. a"
+            " first-order dependence on [OH] is assumed, so the hydroxide order from this"
+            " posterior is pulled towards 1 and its interval is narrower than the data alone"
+            " give; read the order from the posterior without the hierarchical option."
+        )
     if likelihood == "student" and linear == "marginalised":
         notes.append(
             "Student t likelihood: A_0 and A_inf are integrated out by the Laplace method"

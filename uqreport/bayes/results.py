@@ -10,6 +10,8 @@ from __future__ import annotations
 
 import io
 import math
+import os
+import tempfile
 from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -436,15 +438,36 @@ class PosteriorResult:
                 post[_safe_var(nm)] = block[..., i]
         return az.from_dict(
             posterior=post,
-            attrs={"source": "uqreport.bayes", "likelihood": self.settings.likelihood},
+            attrs={
+                "source": "uqreport.bayes",
+                "likelihood": self.settings.likelihood,
+                "ensembles": int(E),
+                "walkers_per_ensemble": int(W),
+                "chain_layout": (
+                    "chain = ensemble * walkers_per_ensemble + walker. The walkers of one"
+                    " ensemble are not independent chains: R-hat across these chains is not"
+                    " valid; use uqreport's split R-hat across ensembles (chains >= 4)."
+                ),
+            },
         )
 
     def to_netcdf(self, path: str | Path) -> Path:
-        """Write the draws as an ArviZ-readable NetCDF file (needs ``uqreport[bayes]``)."""
+        """Write the draws as an ArviZ-readable NetCDF file (needs ``uqreport[bayes]``),
+        through a temporary file in the same folder and a rename (never half-written)."""
         idata = self.to_inference_data()
         target = Path(path)
         target.parent.mkdir(parents=True, exist_ok=True)
-        idata.to_netcdf(str(target))
+        fd, tmp = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=target.parent)
+        os.close(fd)
+        try:
+            idata.to_netcdf(tmp)
+            mask = os.umask(0)
+            os.umask(mask)
+            os.chmod(tmp, 0o666 & ~mask)  # mkstemp's 0600 -> the mode a plain open() gives
+            os.replace(tmp, target)
+        except BaseException:
+            Path(tmp).unlink(missing_ok=True)
+            raise
         return target
 
 

@@ -11,7 +11,8 @@ density gets all proposed positions at once, an (n, ndim) array, and returns (n,
   integrated autocorrelation time tau of every parameter is estimated (on the whole chain),
   and sampling stops when the chain is longer than ``tol`` (50) times the largest tau of
   any parameter and ensemble and that largest tau changed by less than ``rtol`` (1 %)
-  since the previous block;
+  since the previous block, and the part kept after the burn-in is itself longer than
+  ``tol`` times its own largest tau estimate;
 * the first ``discard_taus`` (5) times the largest tau are discarded as burn-in and the rest
   thinned by half the smallest tau;
 * at ``max_steps`` without meeting the rule a :class:`~uqreport.errors.ConvergenceWarning`
@@ -325,10 +326,14 @@ def run_ensembles(
                 last_change = np.abs(old - t_max) / t_max
             settled = bool(abs(old - t_max) < rtol * t_max)
             # long enough that what is kept after the burn-in (discard_taus tau) is still
-            # longer than tol tau, so every kept quantity meets the rule on its own
+            # longer than tol tau, so every kept quantity meets the rule on its own; checked
+            # on the kept part's own estimate too (it can exceed the whole chain's)
             if np.all(np.isfinite(tau)) and steps > (tol + discard_taus) * t_max and settled:
-                converged = True
-                break
+                d = min(math.ceil(discard_taus * t_max), steps // 2)
+                tau_k = np.max([integrated_time(s.get_chain()[d:]) for s in samplers], axis=0)
+                if np.all(np.isfinite(tau_k)) and steps - d > tol * float(np.max(tau_k)):
+                    converged = True
+                    break
             old = t_max
     finally:
         if bar is not None:
