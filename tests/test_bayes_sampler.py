@@ -303,7 +303,8 @@ def test_predictive_check_against_scipy():
         float(np.sum(stats.norm.logpdf(y, mu, sd))), rel=1e-12
     )
     assert 0.03 <= g.share_outside <= 0.07
-    assert g.expected_share == pytest.approx(0.05, rel=1e-9)  # no leverage: 1 - coverage
+    assert g.expected_share == pytest.approx(0.05, rel=1e-12)  # 1 - coverage
+    assert g.expected_share_fitted == pytest.approx(0.05, rel=1e-9)  # no leverage
     assert [(o.table, o.line) for o in g.outliers] == [("batch_r1.csv", 19)]
     t = predictive_check(y, means, sds, rng=rng, likelihood="student", dof=4.0, **kw)
     np.testing.assert_allclose(t.p_values, 2.0 * stats.t.sf(np.abs(z), 4.0), rtol=1e-9)
@@ -318,7 +319,7 @@ def test_predictive_check_expected_share_allows_for_leverage():
     (1 - h) sigma^2 and its predictive distribution (1 + h) sigma^2 (standard least-squares
     results, from memory), so fewer than 5 % of readings fall outside the 95 % band (the
     posterior predictive check is conservative, Gelman et al., BDA3 section 6.3).  Over 300
-    simulated data sets the share outside matches expected_share (2.0 % for 4 parameters
+    simulated data sets the share outside matches expected_share_fitted (2.0 % for 4 parameters
     and 20 readings), within about 4 binomial standard errors of 6000 readings."""
     rng = np.random.default_rng(77)
     t = np.linspace(0.0, 1.0, 20)
@@ -335,7 +336,7 @@ def test_predictive_check_expected_share_allows_for_leverage():
         draws = b_hat + rng.standard_normal((D, 4)) @ L.T
         res = predictive_check(y, draws @ X.T, np.full((D, n), sigma), rng=rng, **kw)
         outside.append(res.share_outside)
-        expected.append(res.expected_share)
+        expected.append(res.expected_share_fitted)
     h = np.einsum("ij,jk,ik->i", X, np.linalg.inv(X.T @ X), X)
     exact = float(np.mean(2.0 * stats.norm.sf(1.959964 * np.sqrt((1 + h) / (1 - h)))))
     assert np.mean(expected) == pytest.approx(exact, rel=0.05)

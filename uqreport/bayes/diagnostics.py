@@ -203,6 +203,8 @@ class PredictiveCheck:
     share_outside:
         n_outside / n_readings; near 1 - coverage when the model describes the readings.
     expected_share:
+        1 - coverage: the nominal share outside (what the band's probability says).
+    expected_share_fitted:
         The share of readings expected outside their band when the model describes them:
         below 1 - coverage, because each reading pulled the fit towards itself (the posterior
         predictive check is conservative, Gelman et al., BDA3 section 6.3).  Computed from
@@ -236,6 +238,7 @@ class PredictiveCheck:
     band_high: NDArray[np.float64]
     outlier_threshold: float
     outliers: tuple[Outlier, ...]
+    expected_share_fitted: float = math.nan
 
     def as_dict(self) -> dict[str, object]:
         return {
@@ -244,6 +247,7 @@ class PredictiveCheck:
             "outside": self.n_outside,
             "share_outside": self.share_outside,
             "expected_share": self.expected_share,
+            "expected_share_fitted": self.expected_share_fitted,
             "log_predictive_density": self.log_predictive_density,
             "outlier_threshold": self.outlier_threshold,
             "outliers": [o.as_dict() for o in self.outliers],
@@ -314,13 +318,14 @@ def predictive_check(
         n_readings=int(n),
         n_outside=int(outside.sum()),
         share_outside=float(outside.mean()),
-        expected_share=expected,
+        expected_share=float(1.0 - coverage),
         log_predictive_density=lppd,
         p_values=p,
         band_low=lo,
         band_high=hi,
         outlier_threshold=float(thr),
         outliers=outliers,
+        expected_share_fitted=expected,
     )
 
 
@@ -332,7 +337,7 @@ def _expected_share(
     coverage: float,
 ) -> float:
     """Share of readings expected outside their predictive band (see
-    :attr:`PredictiveCheck.expected_share`), from the leverages of the draws (D, n)."""
+    :attr:`PredictiveCheck.expected_share_fitted`), from the leverages of the draws (D, n)."""
     student = likelihood == "student"
     noise_var = np.mean(sd * sd, axis=0)
     if student:
