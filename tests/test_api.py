@@ -62,3 +62,13 @@ def test_core_does_not_import_plotting_or_argparse():
     )
     out = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, check=True)
     assert out.stdout.split() == ["False", "False"]
+
+
+def test_the_budget_module_is_not_hidden_by_a_function():
+    """``import uqreport.budget as b`` gives the module (a re-exported function of the same
+    name would shadow it: Python resolves the 'as' form by attribute)."""
+    import types
+
+    import uqreport.budget as b
+
+    assert isinstance(b, types.ModuleType) and callable(b.budget)

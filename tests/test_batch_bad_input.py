@@ -82,3 +82,31 @@ def test_cli_exit_code_2_for_a_chain_problem(demo, tmp_path, capsys):
     assert code == 2
     err = capsys.readouterr().err
     assert "r1" in err and "Traceback" not in err
+
+
+def test_four_readings_are_refused_by_the_file_check(demo):
+    """The file check and the chain agree on the fewest readings of a run (5): a run of 4
+    readings was told to give 4 by the one and refused by the other (common practice: a
+    three-parameter fit with one or two residual degrees of freedom says nothing about the
+    decay's shape)."""
+    edit_table(demo.parent / "batch_r1.csv", lambda rows: rows[:4])
+    with pytest.raises(ExperimentError) as exc:
+        load_experiment(demo)
+    (p,) = [p for p in exc.value.problems if "usable readings" in p.message]
+    assert p.message.startswith("only 4 usable readings")
+    assert "at least 5 usable readings" in p.fix
+
+
+def test_a_noise_level_from_two_residual_dof_is_refused(demo):
+    """Five readings, three fitted parameters, the readings' u from the residuals: a Student t
+    with 2 degrees of freedom has no finite variance (JCGM 101 6.4.9 needs nu > 2), so the
+    chain refuses it and says how to proceed."""
+    from batch_helpers import set_batch_option
+
+    set_batch_option(demo, "noise_source", '"residuals"')
+    edit_table(demo.parent / "batch_r1.csv", lambda rows: rows[:5])
+    probs = _problems(demo)
+    (p,) = [p for p in probs if "degrees of freedom" in p.message]
+    assert "batch.runs[r1]" in p.where
+    assert "5 readings with 3 parameters leaves 2 degrees of freedom" in p.message
+    assert "noise_source = 'spec'" in p.fix

@@ -5,7 +5,8 @@ The public API, re-exported here:
 - input quantities and models: :class:`InputQuantity`, :class:`InputSet`,
   :class:`MeasurementModel`, :func:`columns_model`;
 - engines: :func:`propagate_linear` (GUM), :func:`propagate_montecarlo` (JCGM 101),
-  :func:`validate_linear` (JCGM 101 section 8), :func:`budget`;
+  :func:`validate_linear` (JCGM 101 section 8), :func:`budgets` (the function for one
+  output is ``uqreport.budget.budget``: the module keeps the name ``uqreport.budget``);
 - regression: :func:`linear_least_squares`, :func:`nonlinear_least_squares`, :func:`predict`;
 - studies: :func:`load_experiment`, :func:`analyze`, :class:`Settings`, :func:`write_results`,
   :func:`write_demo`;
@@ -14,7 +15,7 @@ The public API, re-exported here:
 """
 
 from .analysis import Settings, StudyResult, analyze
-from .budget import Budget, BudgetEntry, budget, budgets
+from .budget import Budget, BudgetEntry, budgets
 from .demo import simulate_study, write_demo
 from .errors import (
     ConvergenceWarning,
@@ -62,7 +63,6 @@ __all__ = [
     "ValidationWarning",
     "__version__",
     "analyze",
-    "budget",
     "budgets",
     "columns_model",
     "coverage_factor",

@@ -10,13 +10,14 @@ import argparse
 import json
 import os
 import sys
+import textwrap
 import traceback
 from collections.abc import Sequence
 from pathlib import Path
 
 from . import __version__
 from .errors import ExperimentError, InputError
-from .report.fmt import scale_for
+from .report.fmt import column_exponent, fmt_sig, scale_for, superscript
 from .units import pretty_unit
 
 __all__ = ["main"]
@@ -249,7 +250,8 @@ def _plan_table(res) -> str:
     lines = [f"Improvement plan: {res.experiment.study.title}"]
     for q, qp in plan.quantities.items():
         unit = "" if qp.unit == "1" else f" {pretty_unit(qp.unit)}"
-        sc = scale_for(qp.U, qp.U)  # the new U on the scale of the present one
+        sc = scale_for(qp.U, qp.U)  # one power of ten for the column, that of the present U
+        ex = 10.0**sc.exponent
         width = max([len("improvement"), *(len(c.description) for c in qp.cases[:10])])
         lines.append("")
         lines.append(f"{q}: U = {sc.with_suffix(qp.U)}{unit} (coverage factor {qp.k:.2f})")
@@ -259,34 +261,44 @@ def _plan_table(res) -> str:
         )
         for i, c in enumerate(qp.cases[:10], start=1):
             lines.append(
-                f"  {i:>4}  {c.group:<22} {c.description:<{width}} {sc.fmt(c.U_new):>9}"
-                f" {c.reduction_percent:>5.0f}%"
+                f"  {i:>4}  {c.group:<22} {c.description:<{width}}"
+                f" {fmt_sig(c.U_new / ex, 2):>9} {c.reduction_percent:>5.0f}%"
             )
-        lines.append(f"  {qp.verdict}")
+        lines += textwrap.wrap(
+            qp.verdict, 100, initial_indent="  ", subsequent_indent="  ", break_on_hyphens=False
+        )
         flagged = [c for c in plan.shares_check.get(q, ()) if c.flagged]
         for c in flagged:
-            lines.append(
-                f"  note: the Monte Carlo share of {c.group} ({100 * c.only_share:.0f} % varied"
+            lines += textwrap.wrap(
+                f"note: the Monte Carlo share of {c.group} ({100 * c.only_share:.0f} % varied"
                 f" alone, {100 * c.frozen_share:.0f} % frozen) differs from the linear share"
                 f" ({100 * c.linear_share:.0f} %) by more than 10 points: the model is"
-                " nonlinear over this group's range."
+                " nonlinear over this group's range.",
+                100,
+                initial_indent="  ",
+                subsequent_indent="        ",
             )
     if plan.schedule:
+        us = [x for s in plan.schedule for x in (s.u_current, s.u_optimal)]
+        e = column_exponent(us)
+        uunit = f"10{superscript(e)} s⁻¹" if e else "s⁻¹"
         lines.append("")
         lines.append(
-            "Sampling schedule (equally spaced readings; u(k') in 1/s, from the fit alone):"
+            "Sampling schedule: the same number of equally spaced readings; span = time of the"
         )
-        u_now, u_best = "u(k') now", "u(k') best"
+        lines.append(f"last reading in half-lives; u(k') in {uunit}, from the fit alone.")
         lines.append(
-            f"  {'run':<10} {'n':>3} {'spacing now':>12} {'to half-lives':>14} {u_now:>10}"
-            f" {'best spacing':>13} {'to half-lives':>14} {u_best:>10} {'gain':>6}"
+            f"  {'run':<10} {'n':>3} {'spacing now':>12} {'span now':>9} {'u(k) now':>9}"
+            f" {'best spacing':>13} {'best span':>10} {'u(k) best':>10} {'gain':>6}".replace(
+                "u(k)", "u(k')"
+            )
         )
         for s in plan.schedule:
             lines.append(
                 f"  {s.run:<10} {s.readings:>3} {s.current_spacing_s:>10.0f} s"
-                f" {s.current_half_lives:>14.1f} {s.u_current:>10.2g}"
-                f" {s.optimal_spacing_s:>11.0f} s {s.optimal_half_lives:>14.1f}"
-                f" {s.u_optimal:>10.2g} {s.gain_percent:>5.0f}%"
+                f" {s.current_half_lives:>9.1f} {fmt_sig(s.u_current / 10.0**e, 2):>10}"
+                f" {s.optimal_spacing_s:>11.0f} s {s.optimal_half_lives:>10.1f}"
+                f" {fmt_sig(s.u_optimal / 10.0**e, 2):>11} {s.gain_percent:>5.0f}%"
             )
     return "\n".join(lines)
 
@@ -299,6 +311,7 @@ def _plan(args: argparse.Namespace, argv: list[str]) -> int:
         coverage=args.coverage,
         seed=DEFAULT_SEED if args.seed is None else args.seed,
         montecarlo=False,
+        mcmc=False,  # the plan rests on the linear budget and simulated re-analyses
     )
     if args.out is not None:
         _check_out(args.out)

@@ -18,6 +18,7 @@ from scipy import stats
 from ..compare import dersimonian_laird, weighted_mean
 from ..errors import ExperimentError, InputError, Problem
 from ..experiment import Experiment
+from ..experiment.chains import MIN_BATCH_READINGS
 from ..inputs import InputQuantity
 from ..model import MeasurementModel
 from ..models.batch import BatchStudyModel, RunModel
@@ -42,8 +43,11 @@ from .registry import Column, InputRegistry
 
 __all__ = ["BatchChain", "Finding", "RunFit", "build_batch_chain"]
 
-#: Fewest readings in a run's fit window.
-MIN_READINGS = 5
+#: Fewest readings in a run's fit window (after the noise floor).
+MIN_READINGS = MIN_BATCH_READINGS
+#: Fewest residual degrees of freedom for a noise level taken from the residuals (a Student t
+#: input needs more than 2 for a finite variance, JCGM 101 6.4.9).
+MIN_RESIDUAL_DOF = 3
 #: The log-linear fit keeps readings whose fitted height above the baseline exceeds this many
 #: standard uncertainties (the reading's noise and the baseline's, combined).
 LOG_LINEAR_MARGIN = 5.0
@@ -527,6 +531,27 @@ class _Builder:
         noise_choice = section.noise_source
         crit = stats.chi2.ppf(0.95, dof)
         use_resid = noise_choice == "residuals" or (noise_choice == "auto" and chi2 > crit)
+        if use_resid and dof < MIN_RESIDUAL_DOF:
+            # a t input with 2 or fewer degrees of freedom has no finite variance: the
+            # readings' u cannot come from so few residuals
+            why = (
+                "noise_source = 'residuals' takes"
+                if noise_choice == "residuals"
+                else f"the scatter about the fit exceeds the noise model (chi2 = {chi2:.3g}), so"
+                " it would take"
+            )
+            self.problems.append(
+                Problem(
+                    where,
+                    f"{why} the readings' uncertainty from the residuals, but the fit of"
+                    f" {len(uj)} readings with {len(uj) - dof} parameters leaves {dof} degrees"
+                    f" of freedom (at least {MIN_RESIDUAL_DOF} are needed for a finite"
+                    " standard uncertainty).",
+                    "record more readings in the fit window, or state the spectrophotometer"
+                    " noise and set batch.noise_source = 'spec'.",
+                )
+            )
+            return
         scale = math.sqrt(chi2 / dof) if use_resid else 1.0
         if noise_choice == "auto" and use_resid:
             self.findings.append(

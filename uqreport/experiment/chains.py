@@ -21,6 +21,7 @@ from .schema import Field, Record, RecordSpec, register_section
 from .sections import TIMING_FIELDS, _note, _run_timing, _temperature, _volume
 
 __all__ = [
+    "MIN_BATCH_READINGS",
     "BatchRun",
     "BatchSection",
     "Feed",
@@ -193,6 +194,11 @@ BATCH_RUN = RecordSpec((
     *TIMING_FIELDS,
     _note(),
 ), _build_batch_run, name_field="name")
+
+
+#: Fewest usable readings (flag empty, inside the fit window) of a batch run: the loader
+#: checks the table, the batch chain the readings left after the noise floor.
+MIN_BATCH_READINGS = 5
 
 
 @dataclass(frozen=True)

@@ -24,7 +24,7 @@ from ..errors import ExperimentError, InputError, Problem
 from ..inputs import InputQuantity, InputSet
 from . import chains as _chains  # noqa: F401  (registers the measurement sections)
 from . import plan as _plan  # noqa: F401  (registers the planner section)
-from .chains import BatchSection, Pump, TankSection, TracerSection
+from .chains import MIN_BATCH_READINGS, BatchSection, Pump, TankSection, TracerSection
 from .quantities import QuantitySpec
 from .schema import (
     Context,
@@ -304,10 +304,11 @@ def _check_batch(ctx: Context) -> None:
             continue
         f = run.table.frame
         usable = int(((f["flag"] == "") & (f["time"] >= lo) & (f["time"] <= hi)).sum())
-        if usable <= params:
+        need = max(MIN_BATCH_READINGS, params + 1)
+        if usable < need:
             ctx.add(f"{run.key}.table", f"only {usable} usable readings (flag empty, inside the"
                     f" fit window) for a fit with {params} parameters.",
-                    f"give at least {params + 1} usable readings, or widen the fit window.")
+                    f"give at least {need} usable readings, or widen the fit window.")
     if batch.initial == "from_concentration" and (chem is None or chem.molar_absorptivity is None):
         ctx.add("batch.initial", "initial = 'from_concentration' needs the dye's molar"
                 " absorptivity.", "add [chemistry] molar_absorptivity, or use initial = 'free'.")
