@@ -199,6 +199,24 @@ def test_adaptive_stops_at_cap_with_warning():
     assert not mc.converged and mc.draws == 20_000
 
 
+def test_the_cap_warning_says_how_far_the_tolerance_is():
+    """The warning names the output furthest from the tolerance and the draws that would
+    meet it: the spread of a batch statistic falls as 1/sqrt(draws) (JCGM 101 7.9.4), so
+    about draws * (2 s / delta)^2. For ndig = 3 on u = sqrt(2) (delta = 0.005) the 2.5 %
+    quantile limits: its standard error per batch of 10^4 is sqrt(p(1-p)/M)/f(q) = 0.038
+    (asymptotic quantile variance, common practice), so about 2 x 10^6 draws."""
+    import re
+
+    model = _additive([InputQuantity(f"x{i}", 0.0, 1.0) for i in range(2)])
+    with pytest.warns(ConvergenceWarning) as rec:
+        propagate_montecarlo(model, rng=1, ndig=3, max_draws=40_000)
+    msg = str(rec[0].message)
+    m = re.search(r"'(\w+)' is the furthest .* about ([0-9.e+]+) draws would meet it", msg)
+    assert m and m.group(1) == "Y"
+    assert 4e5 < float(m.group(2)) < 5e7
+    assert "--draws N" in msg
+
+
 def test_non_finite_draws_are_dropped_with_warning():
     ins = InputSet([InputQuantity("x", 1.0, 1.0)])
     model = columns_model(lambda x: np.sqrt(x), ins, ["y"])

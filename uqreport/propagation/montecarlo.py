@@ -300,7 +300,8 @@ def propagate_montecarlo(
                 s = S.std(axis=0, ddof=1) / math.sqrt(h)  # (4, m)
                 u_all = np.concatenate(batches)[:, watch].std(axis=0, ddof=1)
                 delta = np.array([numerical_tolerance(float(v), ndig) for v in u_all])
-                if np.all(2.0 * s <= delta[None, :]):
+                ratio = (2.0 * s / delta[None, :]).max(axis=0)  # (m,): <= 1 when stable
+                if np.all(ratio <= 1.0):
                     converged = True
                     break
             if h * M >= max_draws:
@@ -308,10 +309,22 @@ def propagate_montecarlo(
         Y = np.concatenate(batches)
         adaptive = True
         if not converged:
+            worst = int(np.argmax(ratio)) if len(batches) >= 2 else 0
+            name = model.output_names[int(watch[worst])]
+            more = ""
+            if len(batches) >= 2 and np.isfinite(ratio[worst]):
+                # the spread of the batch statistics falls as 1/sqrt(draws)
+                need = Y.shape[0] * float(ratio[worst]) ** 2
+                more = (
+                    f"; '{name}' is the furthest (twice the standard deviation of its batch"
+                    f" results is {ratio[worst]:.2g} times the tolerance), about"
+                    f" {need:.2g} draws would meet it"
+                )
             warnings.warn(
                 f"model '{model.name}': adaptive Monte Carlo reached max_draws={max_draws}"
-                f" before the numerical tolerance ({ndig} significant digits of u) was met;"
-                " the results are reported with converged = false.",
+                f" before the numerical tolerance ({ndig} significant digits of u) was met{more}."
+                " The results are reported with converged = false: their last digit is less"
+                " certain than stated; a fixed --draws N (or a larger max_draws) goes further.",
                 ConvergenceWarning,
                 stacklevel=2,
             )
