@@ -100,21 +100,29 @@ def test_quantity_short_of_the_rule_warns(tmp_path, monkeypatch):
 
 
 def test_demo_medians_agree_with_linear_and_montecarlo(demo):
-    """Where the model is nearly linear, the posterior median with flat priors on ln k', the
-    GUM value (JCGM 100) and the Monte Carlo median (JCGM 101) agree within 0.2 standard
-    uncertainties (Bernstein-von Mises: the posterior approaches the sampling distribution
-    of the least-squares estimate; standard result, from memory)."""
+    """Where the model is nearly linear and the three methods use the same information, the
+    posterior median with flat priors on ln k', the GUM value (JCGM 100) and the Monte Carlo
+    median (JCGM 101) agree within 0.2 standard uncertainties (Bernstein-von Mises: the
+    posterior approaches the sampling distribution of the least-squares estimate; standard
+    result, from memory).  Same information: the runs' noise held at the specification
+    (noise-scale prior width 0.01), as the GUM and Monte Carlo take it.  With the default
+    prior the posterior also learns each run's noise (run r2 scatters at 0.65 of the spec),
+    which re-weights the runs in the order fit: its median moves by about 0.18 u (seen on
+    this demo; 0.05 u with the noise held), so the default is checked at 0.3 u for it."""
     chain, res, _ = demo
     lin = propagate_linear(chain.model)
     mc = propagate_montecarlo(chain.model, draws=20_000, rng=2)
+    held = batch_posterior(chain, rng=1, noise_prior_width=0.01)
     for name in chain.headline:
         u = lin.estimate(name).u
-        bayes = res.quantities[name].median
         mc_median = float(np.median(mc.samples[:, mc.index(name)]))
-        assert abs(bayes - lin.estimate(name).value) < 0.2 * u, name
-        assert abs(bayes - mc_median) < 0.2 * u, name
+        for post, tol in ((held, 0.2), (res, 0.3 if name == "hydroxide_order" else 0.2)):
+            bayes = post.quantities[name].median
+            assert abs(bayes - lin.estimate(name).value) < tol * u, name
+            assert abs(bayes - mc_median) < tol * u, name
         # the spread agrees too, within the noise-scale estimate's effect (25 %)
         assert res.quantities[name].sd == pytest.approx(u, rel=0.25), name
+        assert held.quantities[name].sd == pytest.approx(u, rel=0.1), name
 
 
 def test_demo_intervals_hold_the_truth(demo):
@@ -362,6 +370,11 @@ def test_integrating_out_equals_sampling(demo):
     sampled = batch_posterior(chain, rng=4, linear="sampled")
     for r in ("r1", "r2", "r3"):
         _agree(res, sampled, f"pseudo_rate_constant/{r}")
+        # a sampled A_0 keeps its summary from the unthinned chain (once overwritten by the
+        # noisier estimate from the thinned draws)
+        name = f"absorbance_zero/{r}"
+        assert sampled.parameters[name].tau == sampled.diagnostics.tau[name]
+    assert sampled.converged and all(q.converged for q in sampled.quantities.values())
     _agree(res, sampled, "second_order_rate_constant")
 
 

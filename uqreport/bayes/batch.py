@@ -415,6 +415,8 @@ def _assemble(
     block = derived.reshape(E, S, W, -1)
     quantities: dict[str, PosteriorSummary] = {}
     for j, nm in enumerate(names):
+        if nm in params:
+            continue  # sampled (linear="sampled"): keep the summary from the unthinned chain
         s = summarise(
             nm,
             units[j],

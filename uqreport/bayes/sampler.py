@@ -12,7 +12,7 @@ density gets all proposed positions at once, an (n, ndim) array, and returns (n,
   and sampling stops when the chain is longer than ``tol`` (50) times the largest tau of
   any parameter and ensemble and that largest tau changed by less than ``rtol`` (1 %)
   since the previous block, and the part kept after the burn-in is itself longer than
-  ``tol`` times its own largest tau estimate;
+  ``headroom`` (1.1) x ``tol`` times its own largest tau estimate;
 * the first ``discard_taus`` (5) times the largest tau are discarded as burn-in and the rest
   thinned by half the smallest tau;
 * at ``max_steps`` without meeting the rule a :class:`~uqreport.errors.ConvergenceWarning`
@@ -241,6 +241,7 @@ def run_ensembles(
     tol: float = 50.0,
     rtol: float = 0.01,
     discard_taus: float = 5.0,
+    headroom: float = 1.1,
     moves: str = "stretch",
     progress: bool = False,
     diagnose: Callable[[NDArray[np.float64]], str] | None = None,
@@ -251,7 +252,9 @@ def run_ensembles(
     posterior standard deviation per parameter: the start ball has radius ``ball`` times
     it.  ``diagnose(x)`` may return a message naming the parameter that makes the density
     zero at ``x``; it is used in the :class:`~uqreport.errors.InputError` raised when the
-    log density is not finite at the start.
+    log density is not finite at the start.  ``headroom`` (1.1) asks the kept part to be
+    that much longer than ``tol`` tau: quantities derived from the thinned draws estimate
+    their own tau a few per cent less precisely and are judged by the same rule.
     """
     gen = as_generator(rng)
     x0 = np.asarray(start, dtype=float)
@@ -331,7 +334,7 @@ def run_ensembles(
             if np.all(np.isfinite(tau)) and steps > (tol + discard_taus) * t_max and settled:
                 d = min(math.ceil(discard_taus * t_max), steps // 2)
                 tau_k = np.max([integrated_time(s.get_chain()[d:]) for s in samplers], axis=0)
-                if np.all(np.isfinite(tau_k)) and steps - d > tol * float(np.max(tau_k)):
+                if np.all(np.isfinite(tau_k)) and steps - d > headroom * tol * np.max(tau_k):
                     converged = True
                     break
             old = t_max
