@@ -203,8 +203,12 @@ def test_plan_table_states_U_on_one_scale():
 
     desc = "taking as many readings again per run over the same time span"
     cases = [
-        NS(group="temperature", description="holding the bath to ±0.1 K", U_new=0.0038,
-           reduction_percent=37.6),
+        NS(
+            group="temperature",
+            description="holding the bath to ±0.1 K",
+            U_new=0.0038,
+            reduction_percent=37.6,
+        ),
         NS(group="absorbance noise", description=desc, U_new=0.005986, reduction_percent=0.2),
     ]
     qp = NS(unit="L/(mol*s)", U=0.006025, k=1.96, cases=cases, verdict="(verdict)")
@@ -233,8 +237,12 @@ def test_summary_line_rounds_as_the_report_does():
         budgets={q: NS(top=lambda n: [NS(input="temperature", share=0.687)])},
     )
     study = NS(title="t", operator="o", date=datetime.date(2025, 2, 11))
-    res = NS(experiment=NS(study=study), headline=[("batch", q)], chains={"batch": chain},
-             all_findings=[])
+    res = NS(
+        experiment=NS(study=study),
+        headline=[("batch", q)],
+        chains={"batch": chain},
+        all_findings=[],
+    )
     text = cli._summary(res, Path("out"))
     assert (
         "second_order_rate_constant = 0.1803 L mol⁻¹ s⁻¹, U = 0.0060 L mol⁻¹ s⁻¹"
@@ -298,8 +306,17 @@ def test_a_refused_write_is_named_not_called_a_bug(monkeypatch, capsys, tmp_path
     monkeypatch.setattr(uqreport.results, "atomic_write_text", full)
     out = tmp_path / "out"
     code = cli.main(
-        ["analyze", str(DATA / "good"), "--out", str(out), "--draws", "2000", "--no-mcmc",
-         "--no-report", "--quiet"]
+        [
+            "analyze",
+            str(DATA / "good"),
+            "--out",
+            str(out),
+            "--draws",
+            "2000",
+            "--no-mcmc",
+            "--no-report",
+            "--quiet",
+        ]
     )
     assert code == 1
     err = capsys.readouterr().err
@@ -307,9 +324,7 @@ def test_a_refused_write_is_named_not_called_a_bug(monkeypatch, capsys, tmp_path
     assert "bug" not in err and "Traceback" not in err
 
 
-@pytest.mark.parametrize(
-    "case", sorted(p.name for p in (DATA / "bad").iterdir() if p.is_dir())
-)
+@pytest.mark.parametrize("case", sorted(p.name for p in (DATA / "bad").iterdir() if p.is_dir()))
 def test_every_bad_case_exits_2_from_check_with_a_fix(case, capsys):
     """Each case of the bad-input corpus through `uqreport check`: exit 2, every problem on
     stderr with its place and its fix, nothing on stdout, no traceback."""
@@ -319,3 +334,42 @@ def test_every_bad_case_exits_2_from_check_with_a_fix(case, capsys):
     lines = [ln for ln in captured.err.splitlines() if ln.startswith("  - ")]
     assert lines and all(" Fix: " in ln for ln in lines), captured.err
     assert "Traceback" not in captured.err and "internal error" not in captured.err
+
+
+def test_robust_dof_sets_the_t_likelihood_and_is_checked(capsys):
+    """--robust-dof NU implies the Student t likelihood with NU degrees of freedom; a value
+    outside 0.5-1000 exits 2 before any analysis."""
+    from uqreport.cli import _parser, _settings
+
+    args = _parser().parse_args(["analyze", "x.toml", "--out", "o", "--robust-dof", "3"])
+    st = _settings(args)
+    assert st.likelihood == "student" and st.student_dof == 3.0
+    args = _parser().parse_args(["analyze", "x.toml", "--out", "o", "--robust"])
+    assert _settings(args).student_dof == 4.0
+    args = _parser().parse_args(["analyze", "x.toml", "--out", "o"])
+    assert _settings(args).likelihood == "gaussian"
+    exp = Path(__file__).resolve().parent.parent / "example_data" / "experiment.toml"
+    assert cli.main(["analyze", str(exp), "--out", "o", "--robust-dof", "0.1"]) == 2
+    err = capsys.readouterr().err
+    assert "--robust-dof 0.1" in err and "Traceback" not in err
+
+
+def test_save_draws_without_a_posterior_says_so(tmp_path, capsys):
+    exp = Path(__file__).resolve().parent.parent / "example_data" / "experiment.toml"
+    out = tmp_path / "o"
+    code = cli.main(
+        [
+            "analyze",
+            str(exp),
+            "--out",
+            str(out),
+            "--no-montecarlo",
+            "--no-mcmc",
+            "--no-report",
+            "--save-draws",
+        ]
+    )
+    assert code == 0
+    text = capsys.readouterr().out
+    assert "no posterior was sampled" in text
+    assert not list(out.glob("posterior_*"))

@@ -88,6 +88,31 @@ def test_chain_bayes_record(run):
     pc = b["predictive_check"]
     assert 0.0 <= pc["share_outside"] <= 0.2 and pc["expected"] == pytest.approx(0.05)
     assert b["correlation"]["parameters"][0] == "ln k'(r1)"
+    # leverage-adjusted expectation: below the nominal share (each reading pulls the fit)
+    assert 0.0 < pc["expected_fitted"] < pc["expected"]
+    # the nuisance parameters' posteriors: the readings' scatter over the noise model
+    for r in ("r1", "r2", "r3"):
+        s = b["parameters"][f"noise_scale/{r}"]
+        assert s["unit"] == "1" and s["low"] < s["median"] < s["high"]
+    assert b["quantities"] == {}  # without the hierarchy, every posterior has a linear twin
+
+
+def test_hierarchical_quantities_reach_results_json(tmp_path):
+    """With the hierarchy, the population k and the between-run spread have no linear
+    counterpart: they are in the chain's bayes record, and the population k agrees with the
+    weighted mean k of the linear method (the runs are consistent, so the spread is small)."""
+    path = demo_study(tmp_path / "demo", seed=7)
+    res = analyze(path, settings=Settings(seed=3, montecarlo=False, plan=False, hierarchical=True))
+    doc = results_dict(res)
+    q = doc["chains"]["batch"]["bayes"]["quantities"]
+    assert set(q) == {"second_order_rate_constant_population", "between_run_spread"}
+    pop, lin = (
+        q["second_order_rate_constant_population"],
+        doc["quantities"]["second_order_rate_constant"]["linear"],
+    )
+    assert pop["unit"] == "L/(mol*s)"
+    assert abs(pop["median"] - lin["value"]) < 0.5 * lin["u"]
+    assert q["between_run_spread"]["unit"] == "1" and q["between_run_spread"]["median"] < 0.1
 
 
 def test_cli_mcmc_options(tmp_path, capsys):
@@ -134,7 +159,7 @@ def test_cli_mcmc_options(tmp_path, capsys):
 # -- the documents kept in step with the code ---------------------------------------------------
 DOCS = Path(__file__).resolve().parent.parent / "docs"
 #: maps keyed by names of the study (quantity, chain, file, package names), not by fields
-_NAME_KEYED = {"quantities", "inputs", "chains", "files", "versions", "shares_check"}
+_NAME_KEYED = {"quantities", "inputs", "chains", "files", "versions", "shares_check", "parameters"}
 
 
 def _documented_names() -> set[str]:

@@ -59,6 +59,9 @@ class Settings:
         Independently seeded ensembles (1, or >= 4 for split R-hat).
     likelihood:
         ``"gaussian"`` or ``"student"`` (robust against outlying readings).
+    student_dof:
+        Degrees of freedom of the Student t likelihood (smaller: heavier tails, outlying
+        readings weigh less).
     hierarchical:
         Run-level rate constants with a between-run spread.
     progress:
@@ -75,6 +78,7 @@ class Settings:
     mcmc: bool = True
     chains: int = 1
     likelihood: str = "gaussian"
+    student_dof: float = 4.0
     hierarchical: bool = False
     progress: bool = False
 
@@ -90,6 +94,7 @@ class Settings:
             "mcmc": self.mcmc,
             "chains": self.chains,
             "likelihood": self.likelihood,
+            "student_dof": self.student_dof,
             "hierarchical": self.hierarchical,
         }
 
@@ -205,6 +210,7 @@ def _run_engines(
                 chain,
                 rng=seed_stream,
                 likelihood=settings.likelihood,
+                student_dof=settings.student_dof,
                 hierarchical=settings.hierarchical,
                 chains=settings.chains,
                 progress=settings.progress,

@@ -100,6 +100,14 @@ def _parser() -> argparse.ArgumentParser:
             help="Student t likelihood for the posterior (outlying readings weigh less)",
         )
         sp.add_argument(
+            "--robust-dof",
+            type=float,
+            default=None,
+            metavar="NU",
+            help="degrees of freedom of the --robust likelihood (default 4; smaller is more"
+            " robust); implies --robust",
+        )
+        sp.add_argument(
             "--hierarchical",
             action="store_true",
             help="posterior with run-level rate constants and a between-run spread",
@@ -189,6 +197,12 @@ def _settings(args: argparse.Namespace):
             f"--chains {args.chains}: give 1, or 4 or more (split R-hat needs at least four"
             " independently seeded ensembles)."
         )
+    if args.robust_dof is not None and not (0.5 <= args.robust_dof <= 1e3):
+        raise InputError(
+            f"--robust-dof {args.robust_dof:g}: give the Student t likelihood's degrees of"
+            " freedom between 0.5 and 1000 (4 is usual; 1 is a Cauchy, above 30 it is nearly"
+            " Gaussian)."
+        )
     interactive = sys.stderr.isatty() and not args.quiet and not os.environ.get("CI")
     return Settings(
         coverage=args.coverage,
@@ -197,14 +211,15 @@ def _settings(args: argparse.Namespace):
         montecarlo=not args.no_montecarlo,
         mcmc=not args.no_mcmc,
         chains=args.chains,
-        likelihood="student" if args.robust else "gaussian",
+        likelihood="student" if args.robust or args.robust_dof is not None else "gaussian",
+        student_dof=4.0 if args.robust_dof is None else args.robust_dof,
         hierarchical=args.hierarchical,
         progress=interactive,
     )
 
 
-def _summary(res, out: Path, *, report: bool = True) -> str:
-    report = ", report.pdf" if report else ""
+def _summary(res, out: Path, *, report: bool = True, extra: Sequence[str] = ()) -> str:
+    report = (", report.pdf" if report else "") + "".join(f", {x}" for x in extra)
     lines = []
     st = res.experiment.study
     lines.append(f"{st.title} - {st.operator}, {st.date.isoformat()}")
@@ -358,6 +373,8 @@ def _analyze(exp_path: Path, out: Path, args: argparse.Namespace, argv: list[str
         for c, ch in res.chains.items()
         if ch.posterior is not None
     }
+    extra: list[str] = []
+    notes: list[str] = []
     if args.save_draws:
         for c, ch in res.chains.items():
             if ch.posterior is None:
@@ -365,16 +382,26 @@ def _analyze(exp_path: Path, out: Path, args: argparse.Namespace, argv: list[str
             npz, nc = out / f"posterior_{c}.npz", out / f"posterior_{c}.nc"
             refuse_input_overwrite(res.experiment, [npz, nc])
             ch.posterior.save_draws(npz)
+            extra.append(npz.name)
             try:
                 ch.posterior.to_netcdf(nc)
+                extra.append(nc.name)
             except InputError:
-                pass  # ArviZ is an optional extra; the .npz file has the same draws
+                # ArviZ is an optional extra; the .npz file has the same draws
+                notes.append(
+                    f"{nc.name} not written: ArviZ is not installed (pip install"
+                    ' "uqreport[bayes]"); the same draws are in ' + npz.name
+                )
+        if not extra:
+            notes.append("--save-draws: no posterior was sampled (--no-mcmc), no draws to save")
     if not args.no_report:
         from .report import build_report
 
         build_report(res, doc, out / "report.pdf", posterior_draws=draws or None)
     if not args.quiet:
-        print(_summary(res, out, report=not args.no_report))
+        print(_summary(res, out, report=not args.no_report, extra=extra))
+        for n in notes:
+            print(f"  note: {n}")
     return EXIT_OK
 
 

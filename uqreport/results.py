@@ -179,9 +179,15 @@ def parameter_label(name: str) -> str:
     return f"{sym}({run})" if run else sym
 
 
-def _bayes_chain(post) -> dict[str, Any]:
+def _finite_or_none(x: float) -> float | None:
+    return float(x) if np.isfinite(x) else None
+
+
+def _bayes_chain(post, outputs: set[str]) -> dict[str, Any]:
     """The chain-level ``bayes`` record: settings, convergence, diagnostics per parameter,
-    the posterior predictive check and the correlation of the sampled parameters."""
+    the posterior predictive check, the correlation of the sampled parameters, and the
+    posterior summaries that have no linear counterpart (``outputs`` are the model's output
+    names, whose summaries are under ``quantities``)."""
     from scipy import stats
 
     d = post.as_dict()
@@ -227,6 +233,7 @@ def _bayes_chain(post) -> dict[str, Any]:
         "predictive_check": {
             "share_outside": pc.share_outside,
             "expected": pc.expected_share,
+            "expected_fitted": _finite_or_none(pc.expected_share_fitted),
             "readings": pc.n_readings,
             "outside": pc.n_outside,
             "log_predictive_density": pc.log_predictive_density,
@@ -238,6 +245,16 @@ def _bayes_chain(post) -> dict[str, Any]:
             "matrix": post.correlation,
         },
         "notes": list(post.notes),
+        # quantities only the posterior has (the hierarchy's population k and between-run
+        # spread) and the nuisance parameters (noise scales, A_0, A_inf)
+        "quantities": {
+            n: {"unit": q.unit, **_bayes_quantity(q)}
+            for n, q in post.quantities.items()
+            if n not in outputs
+        },
+        "parameters": {
+            n: {"unit": q.unit, **_bayes_quantity(q)} for n, q in post.parameters.items()
+        },
     }
 
 
@@ -319,7 +336,9 @@ def results_dict(res: StudyResult, *, command_line: list[str] | None = None) -> 
                 "headline": list(ch.headline),
                 "fits": _fits(ch),
                 "consistency": ch.chain.consistency,
-                "bayes": None if ch.posterior is None else _bayes_chain(ch.posterior),
+                "bayes": None
+                if ch.posterior is None
+                else _bayes_chain(ch.posterior, {o.name for o in ch.linear.outputs}),
                 "montecarlo": None
                 if ch.montecarlo is None
                 else {

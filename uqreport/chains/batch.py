@@ -855,8 +855,8 @@ def build_batch_chain(exp: Experiment) -> BatchChain:
                 "note",
                 "ionic strength",
                 "runs at different excess-reagent concentrations also differ in ionic strength,"
-                " which changes k for an ion + counter-ion reaction (Bronsted-Bjerrum); the"
-                " analysis assumes that effect is small over the range used.",
+                " which changes k for an ion + counter-ion reaction (the primary kinetic salt"
+                " effect); the analysis assumes that effect is small over the range used.",
             )
         )
 

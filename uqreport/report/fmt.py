@@ -259,6 +259,13 @@ _BASE: dict[str, tuple[str, str, str]] = {
     "rate_constant_free_order": ("k_b", "k<sub>b</sub>", "rate constant with the order fitted"),
     "pseudo_rate_constant": ("k′", "k′", "pseudo-first-order rate constant"),
     "hydroxide_concentration": ("[OH⁻]", "[OH⁻]", "hydroxide concentration"),
+    "second_order_rate_constant_population": (
+        "k_pop",
+        "k<sub>pop</sub>",
+        "population second-order rate constant of the runs (hierarchical posterior)",
+    ),
+    "between_run_spread": ("τ_run", "τ<sub>run</sub>", "relative between-run spread of k"),
+    "noise_scale": ("s", "s", "readings' scatter over the noise model"),
 }
 
 

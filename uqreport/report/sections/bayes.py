@@ -37,8 +37,27 @@ def _settings_text(b: Mapping[str, Any]) -> str:
     return "Sampler (affine-invariant ensemble, emcee): " + ", ".join(parts) + "."
 
 
+def _posterior_records(ctx: ReportContext, chain: str) -> dict[str, Any]:
+    """The quantities with a posterior, as results.json records ({unit, bayes}): the model's
+    outputs, then those only the posterior has (the hierarchy's population k and spread) and
+    the noise scales of the runs."""
+    recs = {
+        n: rec
+        for n, rec in ctx.doc.get("quantities", {}).items()
+        if rec.get("bayes") and rec.get("chain", chain) == chain
+    }
+    b = (ctx.doc.get("chains", {}).get(chain) or {}).get("bayes") or {}
+    extra = dict(b.get("quantities") or {})
+    extra.update(
+        {n: r for n, r in (b.get("parameters") or {}).items() if n.startswith("noise_scale/")}
+    )
+    for n, r in extra.items():
+        recs.setdefault(n, {"unit": r.get("unit"), "chain": chain, "bayes": r})
+    return recs
+
+
 def _posterior_table(ctx: ReportContext, chain: str) -> Any | None:
-    q = ctx.doc.get("quantities", {})
+    q = _posterior_records(ctx, chain)
     # one power of ten per kind of quantity (k' of every run, [OH] of every run), as in the
     # batch tables: row by row, k'(r1) came out in 10⁻³ s⁻¹ and k'(r3) in s⁻¹
     family: dict[str, list[Any]] = {}
@@ -151,11 +170,22 @@ def _predictive(b: Mapping[str, Any]) -> list:
     if not pc:
         return []
     share, exp = pc.get("share_outside"), pc.get("expected", 0.05)
+    fitted = pc.get("expected_fitted")
+    band = f"{100 * (1 - fmt.as_float(exp)):g} %"
+    if fitted is None:
+        expect = f"about {fmt.fmt_percent(exp)} expected"
+    else:
+        expect = (
+            f"about {fmt.fmt_percent(fitted)} expected, fewer than {fmt.fmt_percent(exp, 0)}"
+            " because each reading pulled the fit towards itself"
+        )
+    n_out, n_all = pc.get("outside"), pc.get("readings")
+    count = f"{n_out} of {n_all} readings, " if n_out is not None and n_all else ""
     out: list = [
         pdf.para(
-            f"Share of the readings outside their {100 * (1 - fmt.as_float(exp)):g} % posterior"
-            f" predictive band: {fmt.fmt_percent(share)} (about {fmt.fmt_percent(exp)} expected"
-            " when the model and the noise level describe the data)."
+            f"Readings outside their {band} posterior predictive band: {count}"
+            f"{fmt.fmt_percent(share)} ({expect}, when the model and the noise level describe"
+            " the data)."
         )
     ]
     outl = pc.get("outliers") or []
@@ -236,7 +266,8 @@ def build_bayes(ctx: ReportContext) -> list:
                 pt,
                 "Median and standard deviation of the posterior draws, equal-tailed and"
                 " highest-density (HDI) credible intervals, effective sample size (ESS) and"
-                " integrated autocorrelation time τ.",
+                " integrated autocorrelation time τ. s: the readings' scatter over the noise"
+                " model (1: as the instrument specification states).",
             )
         dt = _diagnostics(b)
         if dt is not None:
