@@ -160,16 +160,28 @@ def test_feed_settings_in_the_pump_table_unit(exp):
 
 
 def test_provenance_hashes(exp):
-    assert set(exp.files) == {"experiment.toml", "r1.csv", "r2.csv", "r3.csv", "pump_dye.csv",
-                              "pump_oh.csv", "c1.csv", "c2.csv", "t1.csv"}
+    assert set(exp.files) == {
+        "experiment.toml",
+        "r1.csv",
+        "r2.csv",
+        "r3.csv",
+        "pump_dye.csv",
+        "pump_oh.csv",
+        "c1.csv",
+        "c2.csv",
+        "t1.csv",
+    }
     for rel, digest in exp.files.items():
         assert digest == hashlib.sha256((GOOD / rel).read_bytes()).hexdigest()
 
 
 def test_correlations_use_the_quantity_keys(exp):
     (c,) = exp.correlations
-    assert (c.a, c.b, c.r) == ("chemistry.molar_absorptivity",
-                               "solutions.dye_stock.concentration", 0.3)
+    assert (c.a, c.b, c.r) == (
+        "chemistry.molar_absorptivity",
+        "solutions.dye_stock.concentration",
+        0.3,
+    )
 
 
 def test_quantity_lookup_suggests_on_a_typo(exp):
@@ -203,15 +215,17 @@ def _blocks(lang: str) -> list[str]:
 
 
 def test_docs_example_is_the_good_experiment_file():
-    m = re.search(r"<!-- example: tests/data/good/experiment.toml -->\n```toml\n(.*?)```",
-                  _docs(), flags=re.S)
+    m = re.search(
+        r"<!-- example: tests/data/good/experiment.toml -->\n```toml\n(.*?)```", _docs(), flags=re.S
+    )
     assert m is not None
     assert m.group(1) == (GOOD / "experiment.toml").read_text(encoding="utf-8")
 
 
 def test_docs_example_loads_like_the_good_file(tmp_path):
-    text = re.search(r"<!-- example: tests/data/good/experiment.toml -->\n```toml\n(.*?)```",
-                     _docs(), flags=re.S).group(1)
+    text = re.search(
+        r"<!-- example: tests/data/good/experiment.toml -->\n```toml\n(.*?)```", _docs(), flags=re.S
+    ).group(1)
     target = tmp_path / "study"
     shutil.copytree(GOOD, target)
     (target / "experiment.toml").write_text(text, encoding="utf-8")
@@ -230,8 +244,13 @@ def test_docs_quantity_forms_give_the_gum_uncertainties():
     forms = next(tomllib.loads(b) for b in _blocks("toml") if "u_form" in b)
     got = {}
     for name, raw in forms.items():
-        spec = parse_quantity(raw, key=name, dimension="concentration", mode="uncertain",
-                              report=lambda *a: pytest.fail(str(a)))
+        spec = parse_quantity(
+            raw,
+            key=name,
+            dimension="concentration",
+            mode="uncertain",
+            report=lambda *a: pytest.fail(str(a)),
+        )
         got[name] = spec
     assert got["u_form"].u == 0.0005
     assert got["rectangular"].u == pytest.approx(0.0010 / math.sqrt(3))  # GUM 4.3.7
@@ -246,8 +265,9 @@ def test_docs_quantity_forms_give_the_gum_uncertainties():
 
 
 def test_docs_csv_excerpts_are_lines_of_the_example_tables():
-    for name, block in re.findall(r"`(\w+\.csv)` \([^)]*\):\n\n```csv\n(.*?)```", _docs(),
-                                  flags=re.S):
+    for name, block in re.findall(
+        r"`(\w+\.csv)` \([^)]*\):\n\n```csv\n(.*?)```", _docs(), flags=re.S
+    ):
         lines = (GOOD / name).read_text(encoding="utf-8").splitlines()
         for line in block.splitlines():
             assert line in lines, (name, line)
@@ -269,32 +289,54 @@ CASES = {
     "missing_column": ("r1.csv, line 1", "required column 'absorbance' is missing"),
     "text_in_number": ("r1.csv, line 5, column 'absorbance'", "'0.58o' is not a number"),
     "nan_in_table": ("r1.csv, line 3, column 'absorbance'", "'NaN' is not a finite number"),
-    "negative_uncertainty": ("experiment.toml: batch.runs[r1].hydroxide_concentration.u",
-                             "u = -0.0002 is negative"),
-    "unknown_key": ("experiment.toml: spectrophotometer.nosie_sd",
-                    "unknown key 'nosie_sd' in [spectrophotometer]. Did you mean 'noise_sd'?"),
-    "missing_unit": ("experiment.toml: batch.runs[r1].hydroxide_concentration.unit",
-                     "no unit is given for this concentration"),
+    "negative_uncertainty": (
+        "experiment.toml: batch.runs[r1].hydroxide_concentration.u",
+        "u = -0.0002 is negative",
+    ),
+    "unknown_key": (
+        "experiment.toml: spectrophotometer.nosie_sd",
+        "unknown key 'nosie_sd' in [spectrophotometer]. Did you mean 'noise_sd'?",
+    ),
+    "missing_unit": (
+        "experiment.toml: batch.runs[r1].hydroxide_concentration.unit",
+        "no unit is given for this concentration",
+    ),
     "duplicate_time": ("r1.csv, line 4, column 'time'", "duplicate time 60 s"),
-    "non_psd_correlation": ("experiment.toml: correlations",
-                            "the correlation matrix is not positive semi-definite"),
+    "non_psd_correlation": (
+        "experiment.toml: correlations",
+        "the correlation matrix is not positive semi-definite",
+    ),
     "empty_table": ("r1.csv, line 2", "the table is empty"),
     "not_utf8": ("r1.csv, line 3", "the file is not UTF-8 text (byte 0xb0"),
-    "missing_table": ("experiment.toml: batch.runs[r1].table",
-                      "table file 'r1_final.csv' does not exist"),
-    "unknown_cuvette": ("experiment.toml: batch.runs[r1].cuvette",
-                        "unknown cuvette 'quartz_1'. Did you mean 'quartz1'?"),
-    "decimal_comma": ("r1.csv, line 3, column 'absorbance'",
-                      "'0,646' is written with a decimal comma"),
+    "missing_table": (
+        "experiment.toml: batch.runs[r1].table",
+        "table file 'r1_final.csv' does not exist",
+    ),
+    "unknown_cuvette": (
+        "experiment.toml: batch.runs[r1].cuvette",
+        "unknown cuvette 'quartz_1'. Did you mean 'quartz1'?",
+    ),
+    "decimal_comma": (
+        "r1.csv, line 3, column 'absorbance'",
+        "'0,646' is written with a decimal comma",
+    ),
     "time_not_increasing": ("r1.csv, line 5, column 'time'", "time 75 s is earlier than 90 s"),
-    "wrong_dimension": ("experiment.toml: batch.runs[r1].hydroxide_concentration.unit",
-                        "'mL' is a unit of volume, not of concentration"),
-    "two_uncertainty_forms": ("experiment.toml: batch.runs[r1].hydroxide_concentration",
-                              "two uncertainty forms are given (u and half_width)"),
-    "solution_cycle": ("experiment.toml: solutions.a.stock",
-                       "the stock solutions form a cycle: a -> b -> a"),
-    "duplicate_run_name": ("experiment.toml: batch.runs[1].name",
-                           "name 'r1' is used by two entries"),
+    "wrong_dimension": (
+        "experiment.toml: batch.runs[r1].hydroxide_concentration.unit",
+        "'mL' is a unit of volume, not of concentration",
+    ),
+    "two_uncertainty_forms": (
+        "experiment.toml: batch.runs[r1].hydroxide_concentration",
+        "two uncertainty forms are given (u and half_width)",
+    ),
+    "solution_cycle": (
+        "experiment.toml: solutions.a.stock",
+        "the stock solutions form a cycle: a -> b -> a",
+    ),
+    "duplicate_run_name": (
+        "experiment.toml: batch.runs[1].name",
+        "name 'r1' is used by two entries",
+    ),
 }
 FIXES = {
     "nan_in_table": "give the measured number",
@@ -381,8 +423,10 @@ def test_unknown_section_suggests(tmp_path):
 
 # -- key and quantity edge cases ---------------------------------------------------------------
 def test_kelvin_celsius_mixup_is_out_of_range(tmp_path):
-    study = study_copy(tmp_path, ('temperature = { value = 22.0, unit = "degC"',
-                                  'temperature = { value = 22.0, unit = "K"'))
+    study = study_copy(
+        tmp_path,
+        ('temperature = { value = 22.0, unit = "degC"', 'temperature = { value = 22.0, unit = "K"'),
+    )
     p = one_problem(study, "experiment.toml: study.temperature.value")
     assert "value 22 K is out of range" in p.message and "273.15 K" in p.message
 
@@ -394,17 +438,27 @@ def test_bad_date(tmp_path):
 
 
 def test_bare_number_for_an_uncertain_quantity(tmp_path):
-    study = study_copy(tmp_path, ('[tanks.vessels.tank_b]\nvolume = { value = 500, unit = "mL",'
-                                  ' half_width = 10, source = "fill mark (invented demo)" }',
-                                  "[tanks.vessels.tank_b]\nvolume = 500"))
+    study = study_copy(
+        tmp_path,
+        (
+            '[tanks.vessels.tank_b]\nvolume = { value = 500, unit = "mL",'
+            ' half_width = 10, source = "fill mark (invented demo)" }',
+            "[tanks.vessels.tank_b]\nvolume = 500",
+        ),
+    )
     p = one_problem(study, "experiment.toml: tanks.vessels.tank_b.volume")
     assert "500 is a bare number" in p.message
     assert 'unit = "mL"' in p.fix
 
 
 def test_plain_value_takes_no_uncertainty(tmp_path):
-    study = study_copy(tmp_path, ('reference_temperature = { value = 25.0, unit = "degC" }',
-                                  'reference_temperature = { value = 25.0, unit = "degC", u = 1 }'))
+    study = study_copy(
+        tmp_path,
+        (
+            'reference_temperature = { value = 25.0, unit = "degC" }',
+            'reference_temperature = { value = 25.0, unit = "degC", u = 1 }',
+        ),
+    )
     p = one_problem(study, "experiment.toml: study.reference_temperature.u")
     assert "is a plain value with no uncertainty" in p.message
 
@@ -418,11 +472,14 @@ def test_no_uncertainty_lists_the_forms(tmp_path):
 
 
 def test_t_distribution_needs_dof_and_k_needs_expanded(tmp_path):
-    study = study_copy(tmp_path, ("u = 0.001, source",
-                                  'u = 0.001, distribution = "t", k = 2, source'))
+    study = study_copy(
+        tmp_path, ("u = 0.001, source", 'u = 0.001, distribution = "t", k = 2, source')
+    )
     wheres = {p.where: p.message for p in problems(study)}
-    assert "distribution = 't' needs degrees of freedom." in wheres[
-        "experiment.toml: solutions.oh_stock.concentration.distribution"]
+    assert (
+        "distribution = 't' needs degrees of freedom."
+        in wheres["experiment.toml: solutions.oh_stock.concentration.distribution"]
+    )
     assert "without expanded" in wheres["experiment.toml: solutions.oh_stock.concentration.k"]
 
 
@@ -434,23 +491,31 @@ def test_glassware_only_for_volumes(tmp_path):
 
 def test_all_equal_observations_are_refused():
     msgs = []
-    parse_quantity({"unit": "s", "observations": [12.3, 12.3, 12.3]}, key="x", dimension="time",
-                   mode="uncertain", report=lambda *a: msgs.append(a))
+    parse_quantity(
+        {"unit": "s", "observations": [12.3, 12.3, 12.3]},
+        key="x",
+        dimension="time",
+        mode="uncertain",
+        report=lambda *a: msgs.append(a),
+    )
     assert msgs and "all equal" in msgs[0][1] and "GUM F.2.2.1" in msgs[0][2]
 
 
 # -- glassware ---------------------------------------------------------------------------------
 def test_cylinder_capacity_not_in_the_astm_table(tmp_path):
-    study = study_copy(tmp_path, ('capacity = { value = 10, unit = "mL" }',
-                                  'capacity = { value = 75, unit = "mL" }'))
+    study = study_copy(
+        tmp_path,
+        ('capacity = { value = 10, unit = "mL" }', 'capacity = { value = 75, unit = "mL" }'),
+    )
     p = one_problem(study, "experiment.toml: glassware.cyl10.tolerance")
     assert "no tabulated tolerance for a 75 mL graduated cylinder" in p.message
     assert "tolerance = { half_width" in p.fix
 
 
 def test_cylinder_without_class_or_tolerance(tmp_path):
-    study = study_copy(tmp_path, ('class = "A"                           # tolerance',
-                                  "# tolerance"))
+    study = study_copy(
+        tmp_path, ('class = "A"                           # tolerance', "# tolerance")
+    )
     p = one_problem(study, "experiment.toml: glassware.cyl10.tolerance")
     assert "no tolerance and no class" in p.message
 
@@ -465,21 +530,36 @@ def test_beaker_needs_a_tolerance(tmp_path):
 def test_volume_beyond_capacity_and_partial_flask(tmp_path):
     study = study_copy(
         tmp_path,
-        ('aliquot_volume = { value = 10, unit = "mL", glassware = "cyl10" }',
-         'aliquot_volume = { value = 12, unit = "mL", glassware = "cyl10" }'),
-        ('final_volume = { value = 50, unit = "mL", glassware = "flask50" }\n\n[solutions.oh_080]',
-         'final_volume = { value = 40, unit = "mL", glassware = "flask50" }\n\n[solutions.oh_080]'),
+        (
+            'aliquot_volume = { value = 10, unit = "mL", glassware = "cyl10" }',
+            'aliquot_volume = { value = 12, unit = "mL", glassware = "cyl10" }',
+        ),
+        (
+            'final_volume = { value = 50, unit = "mL", glassware = "flask50" }\n\n'
+            "[solutions.oh_080]",
+            'final_volume = { value = 40, unit = "mL", glassware = "flask50" }\n\n'
+            "[solutions.oh_080]",
+        ),
     )
     msgs = {p.where: p.message for p in problems(study)}
-    assert "12 mL is more than the 10 mL capacity of glassware 'cyl10'" in msgs[
-        "experiment.toml: solutions.oh_040.aliquot_volume.value"]
-    assert "a volumetric flask that holds only its capacity (50 mL)" in msgs[
-        "experiment.toml: solutions.oh_040.final_volume.value"]
+    assert (
+        "12 mL is more than the 10 mL capacity of glassware 'cyl10'"
+        in msgs["experiment.toml: solutions.oh_040.aliquot_volume.value"]
+    )
+    assert (
+        "a volumetric flask that holds only its capacity (50 mL)"
+        in msgs["experiment.toml: solutions.oh_040.final_volume.value"]
+    )
 
 
 def test_pump_volumes_within_the_collecting_glassware(tmp_path):
-    study = study_copy(tmp_path, ('glassware = "cyl50"\nfit = "line"\n\n[pumps.pump_oh]',
-                                  'glassware = "cyl25"\nfit = "line"\n\n[pumps.pump_oh]'))
+    study = study_copy(
+        tmp_path,
+        (
+            'glassware = "cyl50"\nfit = "line"\n\n[pumps.pump_oh]',
+            'glassware = "cyl25"\nfit = "line"\n\n[pumps.pump_oh]',
+        ),
+    )
     p = one_problem(study, "pump_dye.csv, line 7, column 'volume'")
     assert "35.3 mL is more than the 25 mL capacity of glassware 'cyl25'" in p.message
 
@@ -498,8 +578,13 @@ def test_run_override_to_draw_needs_its_own_lag(tmp_path):
 
 
 def test_run_with_its_own_lag(tmp_path):
-    study = study_copy(tmp_path, ('name = "r2"\n', 'name = "r2"\nrecorded_at = "draw"\n'
-                                  'lag = { value = 15, unit = "s", u = 3 }\n'))
+    study = study_copy(
+        tmp_path,
+        (
+            'name = "r2"\n',
+            'name = "r2"\nrecorded_at = "draw"\nlag = { value = 15, unit = "s", u = 3 }\n',
+        ),
+    )
     run = load_experiment(study).batch.runs[1]
     assert (run.recorded_at, run.lag.key, run.lag.value) == ("draw", "batch.runs[r2].lag", 15.0)
 
@@ -508,8 +593,9 @@ def test_run_with_its_own_lag(tmp_path):
 def test_unknown_cuvette_in_the_table_names_the_line(tmp_path):
     study = study_copy(tmp_path)
     csv = study / "r3.csv"
-    csv.write_text(csv.read_text(encoding="utf-8").replace("90,0.307,q2", "90,0.307,q3"),
-                   encoding="utf-8")
+    csv.write_text(
+        csv.read_text(encoding="utf-8").replace("90,0.307,q2", "90,0.307,q3"), encoding="utf-8"
+    )
     p = one_problem(study, "r3.csv, line 6, column 'cuvette'")
     assert "unknown cuvette 'q3'" in p.message and "'q1', 'q2'" in p.fix
 
@@ -523,20 +609,28 @@ def test_duplicate_run_names_across_sections(tmp_path):
 def test_hydroxide_given_twice_or_not_at_all(tmp_path):
     study = study_copy(
         tmp_path,
-        ('name = "r1"\n',
-         'name = "r1"\nhydroxide_concentration = { value = 0.02, unit = "M", u = 1e-4 }\n'),
-        ('hydroxide_solution = "oh_080"\n'
-         'hydroxide_volume = { value = 25, unit = "mL", glassware = "cyl25" }\n', ""),
+        (
+            'name = "r1"\n',
+            'name = "r1"\nhydroxide_concentration = { value = 0.02, unit = "M", u = 1e-4 }\n',
+        ),
+        (
+            'hydroxide_solution = "oh_080"\n'
+            'hydroxide_volume = { value = 25, unit = "mL", glassware = "cyl25" }\n',
+            "",
+        ),
     )
     msgs = {p.where: p.message for p in problems(study)}
-    assert "both hydroxide_concentration and hydroxide_solution + hydroxide_volume" in msgs[
-        "experiment.toml: batch.runs[r1]"]
+    assert (
+        "both hydroxide_concentration and hydroxide_solution + hydroxide_volume"
+        in msgs["experiment.toml: batch.runs[r1]"]
+    )
     assert "the run gives no hydroxide" in msgs["experiment.toml: batch.runs[r2]"]
 
 
 def test_solution_used_against_its_reagent(tmp_path):
-    study = study_copy(tmp_path, ('hydroxide_solution = "oh_040"',
-                                  'hydroxide_solution = "dye_stock"'))
+    study = study_copy(
+        tmp_path, ('hydroxide_solution = "oh_040"', 'hydroxide_solution = "dye_stock"')
+    )
     p = one_problem(study, "experiment.toml: batch.runs[r1].hydroxide_solution")
     assert "marked reagent = 'dye'" in p.message
 
@@ -554,8 +648,11 @@ def test_two_tanks_need_a_tank_column(tmp_path):
 
 
 def test_unknown_vessel_and_pump(tmp_path):
-    study = study_copy(tmp_path, ('vessel = "tank_a"', 'vessel = "tank_c"'),
-                       ('feeds = [ { pump = "pump_dye"', 'feeds = [ { pump = "pump_dy"'))
+    study = study_copy(
+        tmp_path,
+        ('vessel = "tank_a"', 'vessel = "tank_c"'),
+        ('feeds = [ { pump = "pump_dye"', 'feeds = [ { pump = "pump_dy"'),
+    )
     msgs = {p.where: p for p in problems(study)}
     assert "unknown vessel 'tank_c'" in msgs["experiment.toml: tracer.runs[t1].vessel"].message
     p = msgs["experiment.toml: tracer.runs[t1].feeds[0].pump"]
@@ -564,8 +661,10 @@ def test_unknown_vessel_and_pump(tmp_path):
 
 def test_feed_setting_outside_the_calibration_warns(tmp_path):
     after = '\nhydroxide_feed = { solution = "oh_120"'
-    study = study_copy(tmp_path, ('pump = "pump_dye", setting = 5 }' + after,
-                                  'pump = "pump_dye", setting = 9.5 }' + after))
+    study = study_copy(
+        tmp_path,
+        ('pump = "pump_dye", setting = 5 }' + after, 'pump = "pump_dye", setting = 9.5 }' + after),
+    )
     with pytest.warns(ValidationWarning, match=r"setting 9.5 lies outside the calibrated settings"):
         load_experiment(study)
 
@@ -620,29 +719,39 @@ def test_correlation_of_a_glassware_volume(tmp_path):
 
 
 def test_correlation_of_a_rectangular_quantity(tmp_path):
-    p = one_problem(_corr(tmp_path, "study.temperature", "chemistry.molar_absorptivity"),
-                    "experiment.toml: correlations[0].a")
+    p = one_problem(
+        _corr(tmp_path, "study.temperature", "chemistry.molar_absorptivity"),
+        "experiment.toml: correlations[0].a",
+    )
     assert "rectangular distribution" in p.message and "JCGM 101 6.4.8" in p.message
 
 
 def test_correlation_through_an_alias(tmp_path):
-    study = study_copy(tmp_path, ('temperature = { value = 22.0, unit = "degC", half_width = 0.5',
-                                  'temperature = { value = 22.0, unit = "degC", u = 0.3'),
-                       ('a = "chemistry.molar_absorptivity"', 'a = "batch.runs[r2].temperature"'))
+    study = study_copy(
+        tmp_path,
+        (
+            'temperature = { value = 22.0, unit = "degC", half_width = 0.5',
+            'temperature = { value = 22.0, unit = "degC", u = 0.3',
+        ),
+        ('a = "chemistry.molar_absorptivity"', 'a = "batch.runs[r2].temperature"'),
+    )
     (c,) = load_experiment(study).correlations
     assert c.a == "study.temperature"
 
 
 def test_correlation_out_of_range(tmp_path):
-    study = _corr(tmp_path, "chemistry.molar_absorptivity", "solutions.oh_stock.concentration",
-                  "1.5")
+    study = _corr(
+        tmp_path, "chemistry.molar_absorptivity", "solutions.oh_stock.concentration", "1.5"
+    )
     p = one_problem(study, "experiment.toml: correlations[0].r")
     assert "out of range" in p.message
 
 
 def test_tank_feed_against_its_reagent(tmp_path):
-    study = study_copy(tmp_path, ('hydroxide_feed = { solution = "oh_120"',
-                                  'hydroxide_feed = { solution = "dye_stock"'))
+    study = study_copy(
+        tmp_path,
+        ('hydroxide_feed = { solution = "oh_120"', 'hydroxide_feed = { solution = "dye_stock"'),
+    )
     p = one_problem(study, "experiment.toml: tanks.runs[c1].hydroxide_feed.solution")
     assert "marked reagent = 'dye'" in p.message
 
@@ -650,8 +759,9 @@ def test_tank_feed_against_its_reagent(tmp_path):
 def test_empty_cuvette_cells_need_a_run_cuvette(tmp_path):
     study = study_copy(tmp_path)
     csv = study / "r3.csv"
-    csv.write_text(csv.read_text(encoding="utf-8").replace("90,0.307,q2", "90,0.307,"),
-                   encoding="utf-8")
+    csv.write_text(
+        csv.read_text(encoding="utf-8").replace("90,0.307,q2", "90,0.307,"), encoding="utf-8"
+    )
     p = one_problem(study, "experiment.toml: batch.runs[r3].cuvette")
     assert "readings with no cuvette (lines 6)" in p.message
 
@@ -667,9 +777,12 @@ def test_too_few_usable_readings_for_the_fit(tmp_path):
 def test_a_new_section_only_needs_registering(tmp_path):
     from uqreport.experiment import schema
 
-    field = schema.Field("lab_notes", "record", "free notes", record=schema.RecordSpec((
-        schema.Field("text", "str", "the notes", required=True),
-    )))
+    field = schema.Field(
+        "lab_notes",
+        "record",
+        "free notes",
+        record=schema.RecordSpec((schema.Field("text", "str", "the notes", required=True),)),
+    )
     schema.register_section(field)
     try:
         study = study_copy(tmp_path, append='\n[lab_notes]\ntext = "calm day"\n')
@@ -695,15 +808,39 @@ def _leaves(obj, path=()):
 
 _PATHS = list(_leaves(_BASE))
 _DELETE = object()
-_POOL = ["x", "", "r1", "q1", "cyl10", "tank_a", "pump_dye", "r1.csv", "../r1.csv", -1, 0, 2.5,
-         math.nan, math.inf, True, [], {}, [1, 2], ["a"], [{}], {"value": 1},
-         {"value": 1, "unit": "mL"}, {"u": -1}, {"value": "x", "unit": 5},
-         {"observations": [1, "a"]}, "2024-13-01", _DELETE]
+_POOL = [
+    "x",
+    "",
+    "r1",
+    "q1",
+    "cyl10",
+    "tank_a",
+    "pump_dye",
+    "r1.csv",
+    "../r1.csv",
+    -1,
+    0,
+    2.5,
+    math.nan,
+    math.inf,
+    True,
+    [],
+    {},
+    [1, 2],
+    ["a"],
+    [{}],
+    {"value": 1},
+    {"value": 1, "unit": "mL"},
+    {"u": -1},
+    {"value": "x", "unit": 5},
+    {"observations": [1, "a"]},
+    "2024-13-01",
+    _DELETE,
+]
 
 
 @settings(max_examples=80, deadline=None, suppress_health_check=[HealthCheck.too_slow])
-@given(st.lists(st.tuples(st.sampled_from(_PATHS), st.sampled_from(_POOL)), min_size=1,
-                max_size=3))
+@given(st.lists(st.tuples(st.sampled_from(_PATHS), st.sampled_from(_POOL)), min_size=1, max_size=3))
 def test_any_damaged_file_is_loaded_or_reported(mutations):
     raw = copy.deepcopy(_BASE)
     for path, value in mutations:
@@ -749,9 +886,11 @@ def test_final_absorbance_in_the_range_of_readings(tmp_path):
     study = study_copy(
         tmp_path,
         ('baseline = "fitted"', 'baseline = "measured"'),
-        ('dye_volume = { value = 25, unit = "mL", glassware = "cyl25" }',
-         'dye_volume = { value = 25, unit = "mL", glassware = "cyl25" }\n'
-         "final_absorbance = { value = 12, u = 0.002 }"),
+        (
+            'dye_volume = { value = 25, unit = "mL", glassware = "cyl25" }',
+            'dye_volume = { value = 25, unit = "mL", glassware = "cyl25" }\n'
+            "final_absorbance = { value = 12, u = 0.002 }",
+        ),
     )
     found = [str(p) for p in problems(study) if "runs[r1]" in p.where]
     assert found == [
@@ -763,10 +902,15 @@ def test_final_absorbance_in_the_range_of_readings(tmp_path):
 def test_every_observation_is_checked_against_the_range():
     """A negative concentration among the observations passed when the mean was positive."""
     got: list[str] = []
-    spec = parse_quantity({"unit": "mmol/L", "observations": [501, -498, 500, 503]},
-                          key="solutions.s.concentration", dimension="concentration",
-                          mode="uncertain", report=lambda *a: got.append(" ".join(a)),
-                          low=0.0, low_open=True)
+    spec = parse_quantity(
+        {"unit": "mmol/L", "observations": [501, -498, 500, 503]},
+        key="solutions.s.concentration",
+        dimension="concentration",
+        mode="uncertain",
+        report=lambda *a: got.append(" ".join(a)),
+        low=0.0,
+        low_open=True,
+    )
     assert spec is None
     assert got == [
         "solutions.s.concentration.observations observation 2, -498 mmol/L, is out of range:"
@@ -780,14 +924,26 @@ def test_every_observation_is_checked_against_the_range():
     [
         (('title = "Dye', 'titel = "Dye'), "experiment.toml: study.titel", "title"),
         (('name = "r1"', 'nmae = "r1"'), "experiment.toml: batch.runs[0].nmae", "name"),
-        (('unit = "mol/L", u = 0.001', 'unti = "mol/L", u = 0.001'),
-         "experiment.toml: solutions.oh_stock.concentration.unti", "unit"),
-        (('unit = "mol/L", u = 0.001', 'unit = "mol/L", uu = 0.001'),
-         "experiment.toml: solutions.oh_stock.concentration.uu", "u"),
-        (('concentration = { value = 0.200', 'concentration = { vaule = 0.200'),
-         "experiment.toml: solutions.oh_stock.concentration.vaule", "value"),
-        (('hydroxide_solution = "oh_040"', 'hydroxide_solutoin = "oh_040"'),
-         "experiment.toml: batch.runs[r1].hydroxide_solutoin", "hydroxide_solution"),
+        (
+            ('unit = "mol/L", u = 0.001', 'unti = "mol/L", u = 0.001'),
+            "experiment.toml: solutions.oh_stock.concentration.unti",
+            "unit",
+        ),
+        (
+            ('unit = "mol/L", u = 0.001', 'unit = "mol/L", uu = 0.001'),
+            "experiment.toml: solutions.oh_stock.concentration.uu",
+            "u",
+        ),
+        (
+            ("concentration = { value = 0.200", "concentration = { vaule = 0.200"),
+            "experiment.toml: solutions.oh_stock.concentration.vaule",
+            "value",
+        ),
+        (
+            ('hydroxide_solution = "oh_040"', 'hydroxide_solutoin = "oh_040"'),
+            "experiment.toml: batch.runs[r1].hydroxide_solutoin",
+            "hydroxide_solution",
+        ),
     ],
 )
 def test_a_misspelt_key_is_reported_once(tmp_path, edit, where, meant):
@@ -818,10 +974,14 @@ def test_experiment_file_not_utf8_names_the_line_and_byte(tmp_path):
 @pytest.mark.parametrize(
     ("record", "given"),
     [
-        ({"unit": "mol/L", "observations": [0.199, 0.2, 0.201], "distribution": "t"},
-         "3 observations (2 degrees of freedom)"),
-        ({"value": 0.2, "unit": "mol/L", "u": 0.001, "distribution": "t", "dof": 1},
-         "1 degrees of freedom"),
+        (
+            {"unit": "mol/L", "observations": [0.199, 0.2, 0.201], "distribution": "t"},
+            "3 observations (2 degrees of freedom)",
+        ),
+        (
+            {"value": 0.2, "unit": "mol/L", "u": 0.001, "distribution": "t", "dof": 1},
+            "1 degrees of freedom",
+        ),
     ],
 )
 def test_t_distribution_without_a_finite_variance_is_refused(record, given):
@@ -829,8 +989,13 @@ def test_t_distribution_without_a_finite_variance_is_refused(record, given):
     for nu > 2 only; JCGM 101 6.4.9, standard result), so Monte Carlo draws of it give no
     standard uncertainty; the file check says so instead of letting the draws run."""
     msgs = []
-    spec = parse_quantity(record, key="x", dimension="concentration", mode="uncertain",
-                          report=lambda *a: msgs.append(a))
+    spec = parse_quantity(
+        record,
+        key="x",
+        dimension="concentration",
+        mode="uncertain",
+        report=lambda *a: msgs.append(a),
+    )
     assert spec is None
     (where, message, fix) = msgs[0]
     assert where == "x.distribution" and f"with {given} has no finite variance" in message
@@ -840,9 +1005,13 @@ def test_t_distribution_without_a_finite_variance_is_refused(record, given):
 def test_t_distribution_with_three_degrees_of_freedom_is_accepted():
     # nu = 3: variance 3 s^2 (finite), so the input stays a Student t (JCGM 101 6.4.9)
     msgs = []
-    spec = parse_quantity({"unit": "mol/L", "observations": [0.199, 0.2, 0.201, 0.2],
-                           "distribution": "t"}, key="x", dimension="concentration",
-                          mode="uncertain", report=lambda *a: msgs.append(a))
+    spec = parse_quantity(
+        {"unit": "mol/L", "observations": [0.199, 0.2, 0.201, 0.2], "distribution": "t"},
+        key="x",
+        dimension="concentration",
+        mode="uncertain",
+        report=lambda *a: msgs.append(a),
+    )
     assert not msgs and spec is not None
 
 

@@ -652,15 +652,45 @@ def test_input_estimate_keeps_the_decimals_its_u_needs():
     from uqreport.report.sections.inputs import input_rows
 
     items = [
-        {"name": "temperature/study", "value": 297.45, "u": 0.1732, "unit": "K", "dof": "inf",
-         "distribution": "rectangular", "half_width": 0.3, "type": "B", "group": "temperature",
-         "source": "", "block": None},
-        {"name": "concentration/s", "value": 0.5005, "u": 0.00104, "unit": "mol/L", "dof": 3.0,
-         "distribution": "normal", "half_width": None, "type": "A", "group": "c",
-         "source": "", "block": None},
-        {"name": "activation_energy", "value": 60570.0, "u": 2000.0, "unit": "J/mol",
-         "dof": "inf", "distribution": "normal", "half_width": None, "type": "B", "group": "e",
-         "source": "", "block": None},
+        {
+            "name": "temperature/study",
+            "value": 297.45,
+            "u": 0.1732,
+            "unit": "K",
+            "dof": "inf",
+            "distribution": "rectangular",
+            "half_width": 0.3,
+            "type": "B",
+            "group": "temperature",
+            "source": "",
+            "block": None,
+        },
+        {
+            "name": "concentration/s",
+            "value": 0.5005,
+            "u": 0.00104,
+            "unit": "mol/L",
+            "dof": 3.0,
+            "distribution": "normal",
+            "half_width": None,
+            "type": "A",
+            "group": "c",
+            "source": "",
+            "block": None,
+        },
+        {
+            "name": "activation_energy",
+            "value": 60570.0,
+            "u": 2000.0,
+            "unit": "J/mol",
+            "dof": "inf",
+            "distribution": "normal",
+            "half_width": None,
+            "type": "B",
+            "group": "e",
+            "source": "",
+            "block": None,
+        },
     ]
     rows, _ = input_rows(items)
     assert [r[1] for r in rows] == ["297.45", "0.5005", "60570"]
@@ -704,13 +734,30 @@ def test_posterior_rows_of_one_kind_share_a_power_of_ten():
     from uqreport.report.sections.bayes import _posterior_table
 
     def rec(median, sd):
-        return {"chain": "batch", "unit": "1/s", "bayes": {
-            "median": median, "sd": sd, "low": median - 2 * sd, "high": median + 2 * sd,
-            "low_68": median - sd, "high_68": median + sd, "hdi_low": median - 2 * sd,
-            "hdi_high": median + 2 * sd, "ess": 1500, "tau": 20, "converged": True}}
+        return {
+            "chain": "batch",
+            "unit": "1/s",
+            "bayes": {
+                "median": median,
+                "sd": sd,
+                "low": median - 2 * sd,
+                "high": median + 2 * sd,
+                "low_68": median - sd,
+                "high_68": median + sd,
+                "hdi_low": median - 2 * sd,
+                "hdi_high": median + 2 * sd,
+                "ess": 1500,
+                "tau": 20,
+                "converged": True,
+            },
+        }
 
-    doc = {"quantities": {"pseudo_rate_constant/r1": rec(0.003619, 2.7e-5),
-                          "pseudo_rate_constant/r3": rec(0.01082, 1.4e-4)}}
+    doc = {
+        "quantities": {
+            "pseudo_rate_constant/r1": rec(0.003619, 2.7e-5),
+            "pseudo_rate_constant/r3": rec(0.01082, 1.4e-4),
+        }
+    }
     table = _posterior_table(ReportContext(result=None, doc=doc), "batch")
     cells = [[str(getattr(c, "text", c)) for c in row] for row in table._cellvalues[1:]]
     assert [(r[1], r[2]) for r in cells] == [("× 10⁻³ s⁻¹", "3.619"), ("× 10⁻³ s⁻¹", "10.82")]
@@ -724,12 +771,22 @@ def test_inputs_note_comes_before_its_table():
     from uqreport.report.registry import ReportContext
     from uqreport.report.sections.inputs import build_inputs
 
-    reading = {"value": 0.5, "u": 0.002, "unit": "1", "distribution": "normal", "dof": "inf",
-               "type": "B", "group": "absorbance noise", "source": "", "block": "absorbance/r1"}
+    reading = {
+        "value": 0.5,
+        "u": 0.002,
+        "unit": "1",
+        "distribution": "normal",
+        "dof": "inf",
+        "type": "B",
+        "group": "absorbance noise",
+        "source": "",
+        "block": "absorbance/r1",
+    }
     items = [{**reading, "name": f"absorbance/r1/line{i}"} for i in (2, 3)]
     story = build_inputs(ReportContext(result=None, doc={"inputs": {"batch": items}}))
     kinds = [type(f) for f in story if isinstance(f, (Paragraph, Table))]
-    note = next(i for i, f in enumerate(story)
-                if isinstance(f, Paragraph) and "collapsed" in f.text)
+    note = next(
+        i for i, f in enumerate(story) if isinstance(f, Paragraph) and "collapsed" in f.text
+    )
     table = next(i for i, f in enumerate(story) if isinstance(f, Table))
     assert note < table, kinds

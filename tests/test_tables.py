@@ -311,10 +311,14 @@ _CSV_ALPHABET = st.sampled_from([*",;.#\"'\n []0123456789-eEnaNx\t", "\u00b0", "
 
 
 @settings(max_examples=150, deadline=None)
-@given(base=st.sampled_from([("r3.csv", "batch"), ("pump_oh.csv", "pump"),
-                             ("c2.csv", "tank"), ("t1.csv", "tracer")]),
-       edits=st.lists(st.tuples(st.integers(0, 10_000), _CSV_ALPHABET, st.booleans()),
-                      min_size=1, max_size=6))
+@given(
+    base=st.sampled_from(
+        [("r3.csv", "batch"), ("pump_oh.csv", "pump"), ("c2.csv", "tank"), ("t1.csv", "tracer")]
+    ),
+    edits=st.lists(
+        st.tuples(st.integers(0, 10_000), _CSV_ALPHABET, st.booleans()), min_size=1, max_size=6
+    ),
+)
 def test_damaged_tables_are_reported_never_crash(tmp_path_factory, base, edits):
     name, kind = base
     text = list((GOOD / name).read_text(encoding="utf-8"))

@@ -183,7 +183,7 @@ def graduated_cylinder_tolerance(capacity_ml: float, glass_class: str) -> TypeBD
     if cls not in ("A", "B"):
         raise InputError(
             f"glassware class '{glass_class}' is not 'A' or 'B'. Fix: write class = \"A\" or"
-            " class = \"B\", or give the tolerance."
+            ' class = "B", or give the tolerance.'
         )
     cap = float(capacity_ml)
     for listed, (tol_a, tol_b) in GRADUATED_CYLINDER_TOLERANCES.items():
@@ -201,6 +201,6 @@ def graduated_cylinder_tolerance(capacity_ml: float, glass_class: str) -> TypeBD
     raise InputError(
         f"no tabulated tolerance for a {cap:g} mL graduated cylinder"
         f" ({GRADUATED_CYLINDER_SOURCE} lists {listed_text} mL)."
-        " Fix: give the tolerance, e.g. tolerance = { half_width = 0.5, unit = \"mL\","
-        " source = \"marking on the cylinder\" }."
+        ' Fix: give the tolerance, e.g. tolerance = { half_width = 0.5, unit = "mL",'
+        ' source = "marking on the cylinder" }.'
     )

@@ -50,8 +50,21 @@ __all__ = [
 ]
 
 KINDS = (
-    "str", "bool", "int", "number", "enum", "date", "plain", "uncertain", "offset", "ref",
-    "list", "path", "record", "records", "mapping",
+    "str",
+    "bool",
+    "int",
+    "number",
+    "enum",
+    "date",
+    "plain",
+    "uncertain",
+    "offset",
+    "ref",
+    "list",
+    "path",
+    "record",
+    "records",
+    "mapping",
 )
 _QUANTITY_KINDS = ("plain", "uncertain", "offset")
 _ID = re.compile(r"^[A-Za-z0-9_-]+$")
@@ -259,8 +272,14 @@ class Context:
 class Record:
     """The parsed values of one record, handed to :attr:`RecordSpec.build`."""
 
-    def __init__(self, values: dict[str, Any], raw: Mapping[str, Any], key: str,
-                 name: str | None, ctx: Context):
+    def __init__(
+        self,
+        values: dict[str, Any],
+        raw: Mapping[str, Any],
+        key: str,
+        name: str | None,
+        ctx: Context,
+    ):
         self.values = values
         self.raw = raw
         self.key = key
@@ -334,18 +353,25 @@ def _check_unknown(raw: Mapping[str, Any], spec: RecordSpec, key: str, ctx: Cont
         place = (f"[{key}]" if "[" not in key else key) if key else "the top level"
         close = closest(name, allowed)
         hint = f" Did you mean '{close}'?" if close else ""
-        ctx.add(_join(key, str(name)), f"unknown key '{name}' in {place}.{hint}",
-                "allowed keys here: " + ", ".join(allowed) + ".")
+        ctx.add(
+            _join(key, str(name)),
+            f"unknown key '{name}' in {place}.{hint}",
+            "allowed keys here: " + ", ".join(allowed) + ".",
+        )
         if close is not None and close not in raw:
             ctx.misspelt.add(_join(key, close))
 
 
-def parse_record(raw: object, spec: RecordSpec, *, key: str, ctx: Context,
-                 name: str | None = None) -> Any:
+def parse_record(
+    raw: object, spec: RecordSpec, *, key: str, ctx: Context, name: str | None = None
+) -> Any:
     """Parse a table ``raw`` against ``spec``; returns what ``spec.build`` returns."""
     if not isinstance(raw, Mapping):
-        ctx.add(key, f"{raw!r} is not a table of keys.",
-                f"write [{key}] as a table (or an inline table {{ ... }}).")
+        ctx.add(
+            key,
+            f"{raw!r} is not a table of keys.",
+            f"write [{key}] as a table (or an inline table {{ ... }}).",
+        )
         return None
     _check_unknown(raw, spec, key, ctx)
     values = {f.name: parse_field(f, raw, key=key, ctx=ctx) for f in spec.fields}
@@ -362,8 +388,11 @@ def parse_field(f: Field, container: Mapping[str, Any], *, key: str, ctx: Contex
         section = f.kind in ("record", "mapping", "records") and "[" not in fkey
         what = "section" if section else "key"
         if fkey not in ctx.misspelt:  # else already reported as the misspelt key
-            ctx.add(fkey, f"required {what} {_describe(f, fkey)} is missing.",
-                    f"add {f.example or f.name}" + (f" ({f.doc})." if f.doc else "."))
+            ctx.add(
+                fkey,
+                f"required {what} {_describe(f, fkey)} is missing.",
+                f"add {f.example or f.name}" + (f" ({f.doc})." if f.doc else "."),
+            )
         if f.kind == "mapping":
             ctx.ids[fkey] = ()
         return None
@@ -409,8 +438,11 @@ def parse_value(f: Field, raw: object, *, key: str, ctx: Context) -> Any:
         return raw
     if kind == "bool":
         if not isinstance(raw, bool):
-            ctx.add(key, f"{f.name} = {raw!r} is not true or false.",
-                    f"write {f.name} = true or {f.name} = false (no quotes).")
+            ctx.add(
+                key,
+                f"{f.name} = {raw!r} is not true or false.",
+                f"write {f.name} = true or {f.name} = false (no quotes).",
+            )
             return None
         return raw
     if kind in ("int", "number"):
@@ -420,24 +452,38 @@ def parse_value(f: Field, raw: object, *, key: str, ctx: Context) -> Any:
             ctx.add(key, f"{f.name} = {raw!r} is not {what}.", f"write {f.name} as {what}.")
             return None
         if not _bounds_ok(f, float(raw)):  # type: ignore[arg-type]
-            ctx.add(key, f"{f.name} = {raw!r} is out of range: it must be {_bounds_text(f)}.",
-                    f"give {f.name} {_bounds_text(f)}.")
+            ctx.add(
+                key,
+                f"{f.name} = {raw!r} is out of range: it must be {_bounds_text(f)}.",
+                f"give {f.name} {_bounds_text(f)}.",
+            )
             return None
         return raw if kind == "int" else float(raw)  # type: ignore[arg-type]
     if kind == "enum":
         if not isinstance(raw, str) or raw not in f.choices:
             hint = suggest(raw, f.choices) if isinstance(raw, str) else ""
-            ctx.add(key, f"{f.name} = {raw!r} is not an allowed value.{hint}",
-                    "use one of " + ", ".join(repr(c) for c in f.choices) + ".")
+            ctx.add(
+                key,
+                f"{f.name} = {raw!r} is not an allowed value.{hint}",
+                "use one of " + ", ".join(repr(c) for c in f.choices) + ".",
+            )
             return None
         return raw
     if kind == "date":
         return _parse_date(f, raw, key, ctx)
     if kind in _QUANTITY_KINDS:
         assert f.dimension is not None
-        spec = parse_quantity(raw, key=key, dimension=f.dimension, mode=kind, report=ctx.add,
-                              glassware_ok=f.glassware_ok, low=f.low, low_open=f.low_open,
-                              high=f.high)
+        spec = parse_quantity(
+            raw,
+            key=key,
+            dimension=f.dimension,
+            mode=kind,
+            report=ctx.add,
+            glassware_ok=f.glassware_ok,
+            low=f.low,
+            low_open=f.low_open,
+            high=f.high,
+        )
         if spec is not None:
             ctx.quantities[key] = spec
             if spec.glassware is not None:
@@ -445,8 +491,11 @@ def parse_value(f: Field, raw: object, *, key: str, ctx: Context) -> Any:
         return spec
     if kind == "ref":
         if not isinstance(raw, str) or not raw:
-            ctx.add(key, f"{f.name or 'id'} = {raw!r} is not an id.",
-                    f'write the id in quotes, as defined under [{f.target}.<id>].')
+            ctx.add(
+                key,
+                f"{f.name or 'id'} = {raw!r} is not an id.",
+                f"write the id in quotes, as defined under [{f.target}.<id>].",
+            )
             return None
         assert f.target is not None
         ctx.refer(key, f.target, raw)
@@ -473,8 +522,11 @@ def _parse_date(f: Field, raw: object, key: str, ctx: Context) -> _dt.date | Non
             return _dt.date.fromisoformat(raw.strip())
         except ValueError:
             pass
-    ctx.add(key, f"{f.name} = {raw!r} is not a date.",
-            f"write {f.name} = 2024-03-05 (a TOML date) or \"2024-03-05\" (YYYY-MM-DD).")
+    ctx.add(
+        key,
+        f"{f.name} = {raw!r} is not a date.",
+        f'write {f.name} = 2024-03-05 (a TOML date) or "2024-03-05" (YYYY-MM-DD).',
+    )
     return None
 
 
@@ -483,10 +535,16 @@ def _parse_list(f: Field, raw: object, key: str, ctx: Context) -> tuple[Any, ...
         ctx.add(key, f"{f.name} = {raw!r} is not a list.", f"write {f.name} = [ ... ].")
         return None
     if len(raw) < f.min_items or (f.max_items is not None and len(raw) > f.max_items):
-        want = (f"{f.min_items} to {f.max_items}" if f.max_items is not None
-                else f"at least {f.min_items}")
-        ctx.add(key, f"{f.name} has {len(raw)} item(s); it needs {want}.",
-                f"give {want} item(s) in {f.name}.")
+        want = (
+            f"{f.min_items} to {f.max_items}"
+            if f.max_items is not None
+            else f"at least {f.min_items}"
+        )
+        ctx.add(
+            key,
+            f"{f.name} has {len(raw)} item(s); it needs {want}.",
+            f"give {want} item(s) in {f.name}.",
+        )
         return None
     assert f.item is not None
     return tuple(parse_value(f.item, x, key=f"{key}[{i}]", ctx=ctx) for i, x in enumerate(raw))
@@ -494,14 +552,20 @@ def _parse_list(f: Field, raw: object, key: str, ctx: Context) -> tuple[Any, ...
 
 def _parse_path(f: Field, raw: object, key: str, ctx: Context) -> Table | None:
     if not isinstance(raw, str) or not raw.strip():
-        ctx.add(key, f"{f.name} = {raw!r} is not a file path.",
-                f'write {f.name} = "runs/r1.csv" (relative to the experiment file).')
+        ctx.add(
+            key,
+            f"{f.name} = {raw!r} is not a file path.",
+            f'write {f.name} = "runs/r1.csv" (relative to the experiment file).',
+        )
         return None
     given = Path(raw.strip())
     if given.is_absolute():
-        ctx.add(key, f"{f.name} = {raw!r} is an absolute path.",
-                "give the path relative to the experiment file's folder, so the study folder"
-                " can be moved and archived as a whole.")
+        ctx.add(
+            key,
+            f"{f.name} = {raw!r} is an absolute path.",
+            "give the path relative to the experiment file's folder, so the study folder"
+            " can be moved and archived as a whole.",
+        )
         return None
     full = ctx.directory / given
     rel = Path(os.path.relpath(full, ctx.directory)).as_posix()
@@ -522,16 +586,25 @@ def _parse_path(f: Field, raw: object, key: str, ctx: Context) -> Table | None:
 
 def _parse_records(f: Field, raw: object, key: str, ctx: Context) -> tuple[Any, ...] | None:
     if isinstance(raw, Mapping):
-        ctx.add(key, f"{key} is a single table; it must be an array of tables.",
-                f"write each entry under its own [[{key}]] header.")
+        ctx.add(
+            key,
+            f"{key} is a single table; it must be an array of tables.",
+            f"write each entry under its own [[{key}]] header.",
+        )
         return None
     if not isinstance(raw, list) or not all(isinstance(x, Mapping) for x in raw):
-        ctx.add(key, f"{key} = {raw!r} is not an array of tables.",
-                f"write each entry under its own [[{key}]] header.")
+        ctx.add(
+            key,
+            f"{key} = {raw!r} is not an array of tables.",
+            f"write each entry under its own [[{key}]] header.",
+        )
         return None
     if len(raw) < f.min_items:
-        ctx.add(key, f"{key} has {len(raw)} entries; at least {f.min_items} are needed.",
-                f"add a [[{key}]] entry.")
+        ctx.add(
+            key,
+            f"{key} has {len(raw)} entries; at least {f.min_items} are needed.",
+            f"add a [[{key}]] entry.",
+        )
     assert f.record is not None
     spec = f.record
     out = []
@@ -544,11 +617,17 @@ def _parse_records(f: Field, raw: object, key: str, ctx: Context) -> tuple[Any, 
                 label, name = nm, nm
                 seen.add(nm)
             elif isinstance(nm, str) and nm in seen:
-                ctx.add(f"{key}[{i}].{spec.name_field}", f"name '{nm}' is used by two entries"
-                        f" of [[{key}]].", "give every entry its own name.")
+                ctx.add(
+                    f"{key}[{i}].{spec.name_field}",
+                    f"name '{nm}' is used by two entries of [[{key}]].",
+                    "give every entry its own name.",
+                )
             elif nm is not None:
-                ctx.add(f"{key}[{i}].{spec.name_field}", f"name {nm!r} is not a plain name.",
-                        "use letters, digits, '_' and '-' only (e.g. \"r1\").")
+                ctx.add(
+                    f"{key}[{i}].{spec.name_field}",
+                    f"name {nm!r} is not a plain name.",
+                    "use letters, digits, '_' and '-' only (e.g. \"r1\").",
+                )
         out.append(parse_record(item, spec, key=f"{key}[{label}]", ctx=ctx, name=name))
     return tuple(out)
 
@@ -556,16 +635,22 @@ def _parse_records(f: Field, raw: object, key: str, ctx: Context) -> tuple[Any, 
 def _parse_mapping(f: Field, raw: object, key: str, ctx: Context) -> dict[str, Any]:
     ctx.ids[key] = ()
     if not isinstance(raw, Mapping):
-        ctx.add(key, f"{key} = {raw!r} is not a table of ids.",
-                f"write one [{key}.<id>] table per item.")
+        ctx.add(
+            key,
+            f"{key} = {raw!r} is not a table of ids.",
+            f"write one [{key}.<id>] table per item.",
+        )
         return {}
     assert f.record is not None
     out: dict[str, Any] = {}
     ids = []
     for ident, item in raw.items():
         if not _ID.match(ident):
-            ctx.add(f"{key}.{ident}", f"id '{ident}' is not a plain name.",
-                    "use letters, digits, '_' and '-' only (key paths use '.').")
+            ctx.add(
+                f"{key}.{ident}",
+                f"id '{ident}' is not a plain name.",
+                "use letters, digits, '_' and '-' only (key paths use '.').",
+            )
             continue
         ids.append(ident)
         value = parse_record(item, f.record, key=f"{key}.{ident}", ctx=ctx, name=ident)
@@ -591,8 +676,9 @@ def registered_sections() -> tuple[Field, ...]:
     return tuple(_REGISTRY.values())
 
 
-def iter_fields(fields: tuple[Field, ...] | None = None, prefix: str = ""
-                ) -> Iterator[tuple[str, Field]]:
+def iter_fields(
+    fields: tuple[Field, ...] | None = None, prefix: str = ""
+) -> Iterator[tuple[str, Field]]:
     """Every (key path pattern, field) below ``fields`` (default: all sections)."""
     for f in registered_sections() if fields is None else fields:
         path = _join(prefix, f.name)

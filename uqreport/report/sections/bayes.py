@@ -172,11 +172,12 @@ def _predictive(b: Mapping[str, Any]) -> list:
     share, exp = pc.get("share_outside"), pc.get("expected", 0.05)
     fitted = pc.get("expected_fitted")
     band = f"{100 * (1 - fmt.as_float(exp)):g} %"
+    when = "expected when the model and the noise level describe the data"
     if fitted is None:
-        expect = f"about {fmt.fmt_percent(exp)} expected"
+        expect = f"about {fmt.fmt_percent(exp)} {when}"
     else:
         expect = (
-            f"about {fmt.fmt_percent(fitted)} expected, fewer than {fmt.fmt_percent(exp, 0)}"
+            f"about {fmt.fmt_percent(fitted)} {when}: fewer than {fmt.fmt_percent(exp, 0)},"
             " because each reading pulled the fit towards itself"
         )
     n_out, n_all = pc.get("outside"), pc.get("readings")
@@ -184,8 +185,7 @@ def _predictive(b: Mapping[str, Any]) -> list:
     out: list = [
         pdf.para(
             f"Readings outside their {band} posterior predictive band: {count}"
-            f"{fmt.fmt_percent(share)} ({expect}, when the model and the noise level describe"
-            " the data)."
+            f"{fmt.fmt_percent(share)} ({expect})."
         )
     ]
     outl = pc.get("outliers") or []
