@@ -428,10 +428,22 @@ class _Builder:
             return
 
         # nominal fit with the noise model, then with the lag jitter as effective variance
+        def nominal_fit(uj, sig_A, start=None):
+            """The fit of the used readings ``uj`` weighted by the noise model alone."""
+            lu = l_nom[uj]
+            return fit_decay(
+                t_nom[uj],
+                a_nom[uj],
+                weights=lu**2 / sig_A[uj] ** 2,
+                baseline=c_fix,
+                initial=a0_fix,
+                start=start,
+                warn=False,
+            )
+
         sig_A = np.sqrt(s0**2 + (srel * A) ** 2)
         tu, au, lu = t_nom[uj], a_nom[uj], l_nom[uj]
-        w0 = lu**2 / sig_A[uj] ** 2
-        fit0 = fit_decay(tu, au, weights=w0, baseline=c_fix, initial=a0_fix, warn=False)
+        fit0 = nominal_fit(uj, sig_A)
         if srel > 0:
             # the proportional part is a property of the expected reading, so it is taken at
             # the fitted absorbance: taken at each reading's own (noisy) value it gives the
@@ -439,16 +451,7 @@ class _Builder:
             sig_A = np.sqrt(
                 s0**2 + (srel * (decay_curve(t_nom, *fit0.params[0]) * l_nom + off_val)) ** 2
             )
-            w0 = lu**2 / sig_A[uj] ** 2
-            fit0 = fit_decay(
-                tu,
-                au,
-                weights=w0,
-                baseline=c_fix,
-                initial=a0_fix,
-                start=fit0.params[0],
-                warn=False,
-            )
+            fit0 = nominal_fit(uj, sig_A, fit0.params[0])
         # the noise floor is applied to the fitted absorbance, not to each reading: selecting
         # readings by their own (noisy) value would keep the high ones and bias the fit
         c, a0, k = fit0.params[0]
@@ -490,16 +493,7 @@ class _Builder:
                 return
             uj = np.flatnonzero(used)
             tu, au, lu = t_nom[uj], a_nom[uj], l_nom[uj]
-            w0 = lu**2 / sig_A[uj] ** 2
-            fit0 = fit_decay(
-                tu,
-                au,
-                weights=w0,
-                baseline=c_fix,
-                initial=a0_fix,
-                start=fit0.params[0],
-                warn=False,
-            )
+            fit0 = nominal_fit(uj, sig_A, fit0.params[0])
             c, a0, k = fit0.params[0]
         fit1 = fit0
         # the weights at the nominal solution: the jitter through the fitted slope, and the
