@@ -135,7 +135,8 @@ def _parser() -> argparse.ArgumentParser:
         "analyze",
         parents=[common],
         help="analyse an experiment file",
-        description="Check and analyse EXPERIMENT; write results.json, budget.csv and fits.csv"
+        description="Check and analyse EXPERIMENT (linear propagation, Monte Carlo, Bayesian"
+        " posterior, improvement plan); write report.pdf, results.json, budget.csv and fits.csv"
         " into --out.",
     )
     a.add_argument("experiment", type=Path, help="the experiment file (TOML) or its folder")
