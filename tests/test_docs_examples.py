@@ -23,8 +23,20 @@ def _blocks():
 
 
 @pytest.mark.parametrize("code", _blocks())
-def test_python_example_runs(code, tmp_path, monkeypatch):
+def test_python_example_runs(code, tmp_path, monkeypatch, capsys):
+    """Each example runs and shows its result: what it prints holds numbers and none is
+    NaN, and every file it writes is non-empty (a PDF starts with its signature)."""
     for p in (ROOT / "example_data").iterdir():
         shutil.copy(p, tmp_path / p.name)
+    before = {p.name for p in tmp_path.iterdir()}
     monkeypatch.chdir(tmp_path)
     exec(compile(code, "<docs example>", "exec"), {"__name__": "__docs__"})
+    printed = capsys.readouterr().out
+    written = [p for p in tmp_path.iterdir() if p.name not in before]
+    assert printed or written, "the example neither prints nor writes anything"
+    if printed:
+        assert re.search(r"\d", printed) and "nan" not in printed.lower(), printed
+    for p in written:
+        assert p.stat().st_size > 0, p.name
+        if p.suffix == ".pdf":
+            assert p.read_bytes().startswith(b"%PDF-"), p.name
