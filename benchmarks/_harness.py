@@ -25,8 +25,10 @@ __all__ = [
     "RESULT_TAG",
     "THREAD_VARIABLES",
     "Verdict",
+    "busy_note",
     "current_rss_mib",
     "emit_result",
+    "engine_chunk",
     "machine_note",
     "peak_rss_mib",
     "pin_to_cpu",
@@ -34,6 +36,7 @@ __all__ = [
     "run_worker",
     "single_core_env",
     "summarise",
+    "timed_montecarlo",
     "write_json",
 ]
 
@@ -187,6 +190,73 @@ class Verdict:
             "figure": self.figure,
             "note": self.note,
         }
+
+
+def engine_chunk(model: Any, fallback: int) -> int:
+    """The number of draws the Monte Carlo engine evaluates per model call (its own rule);
+    ``fallback`` when the engine's private helper has moved."""
+    from uqreport.propagation import montecarlo
+
+    try:
+        return int(montecarlo._chunk_size(model, montecarlo.DEFAULT_CHUNK_BYTES))
+    except AttributeError:
+        return fallback
+
+
+def timed_montecarlo(
+    model: Any, draws: int, seed: int, *, trace: bool, profile: bool, profile_lines: int
+) -> tuple[Any, dict[str, Any]]:
+    """One timed ``propagate_montecarlo`` call after a warm-up: the result and its figures
+    (wall and CPU time, peak and starting RSS, draws, failed draws; the tracemalloc peak
+    with ``trace``, a cProfile listing with ``profile``)."""
+    import cProfile
+    import io
+    import pstats
+    import tracemalloc
+
+    from uqreport.propagation import propagate_montecarlo
+
+    propagate_montecarlo(model, draws=1000, rng=seed + 1)  # warm-up: first-call costs
+    rss_before = current_rss_mib()
+    prof = cProfile.Profile() if profile else None
+    if trace:
+        tracemalloc.start()
+    if prof:
+        prof.enable()
+    w0, c0 = time.perf_counter(), time.process_time()
+    res = propagate_montecarlo(model, draws=draws, rng=seed)
+    wall, cpu = time.perf_counter() - w0, time.process_time() - c0
+    if prof:
+        prof.disable()
+    out: dict[str, Any] = {
+        "wall_s": wall,
+        "cpu_s": cpu,
+        "peak_rss_mib": peak_rss_mib(),
+        "rss_before_mib": rss_before,
+        "draws": res.draws,
+        "failed_draws": res.failed_draws,
+    }
+    if trace:
+        out["traced_peak_mib"] = tracemalloc.get_traced_memory()[1] / 2**20
+        tracemalloc.stop()
+    if prof:
+        buf = io.StringIO()
+        pstats.Stats(prof, stream=buf).sort_stats("tottime").print_stats(profile_lines)
+        out["profile"] = buf.getvalue()
+    return res, out
+
+
+def busy_note(cpu: dict[str, float], wall: dict[str, float]) -> str:
+    """ "; machine busy: ..." when the best CPU time is well below the best wall time (the
+    worker waited for a CPU), printed as a caution; "" otherwise."""
+    if cpu["min"] >= 0.9 * wall["min"]:
+        return ""
+    note = (
+        f"; machine busy: CPU/wall {cpu['min'] / wall['min']:.2f}, the worker waited for a"
+        " CPU, so the CPU time is the better one-core figure"
+    )
+    print("caution: " + note[2:])
+    return note
 
 
 def summarise(values: Sequence[float]) -> dict[str, float]:

@@ -119,60 +119,21 @@ def weighted_ssq(run, X, params):
 
 # -- workers (each runs in a fresh process) ----------------------------------------------
 def worker_mc(draws: int, seed: int, *, trace: bool, profile: bool) -> dict[str, Any]:
-    import cProfile
-    import io
-    import pstats
-    import tracemalloc
-
-    from uqreport.propagation import propagate_montecarlo
-
     with tempfile.TemporaryDirectory(prefix="uqreport-bench-") as tmp:
         chain = build_chain(Path(tmp))
     model = chain.model
-    propagate_montecarlo(model, draws=1000, rng=seed + 1)  # warm-up: first-call costs
-    rss_before = H.current_rss_mib()
-    prof = cProfile.Profile() if profile else None
-    if trace:
-        tracemalloc.start()
-    if prof:
-        prof.enable()
-    w0, c0 = time.perf_counter(), time.process_time()
-    res = propagate_montecarlo(model, draws=draws, rng=seed)
-    wall, cpu = time.perf_counter() - w0, time.process_time() - c0
-    if prof:
-        prof.disable()
-    out: dict[str, Any] = {
-        "wall_s": wall,
-        "cpu_s": cpu,
-        "peak_rss_mib": H.peak_rss_mib(),
-        "rss_before_mib": rss_before,
-        "draws": res.draws,
-        "failed_draws": res.failed_draws,
-        "n_inputs": model.n_inputs,
-        "n_outputs": model.n_outputs,
-        "readings_used": [int(f.used.sum()) for f in chain.fits],
-        "headline": {
+    res, out = H.timed_montecarlo(
+        model, draws, seed, trace=trace, profile=profile, profile_lines=18
+    )
+    out.update(
+        n_inputs=model.n_inputs,
+        n_outputs=model.n_outputs,
+        readings_used=[int(f.used.sum()) for f in chain.fits],
+        headline={
             name: [res.estimate(name).value, res.estimate(name).u] for name in chain.headline
         },
-    }
-    if trace:
-        out["traced_peak_mib"] = tracemalloc.get_traced_memory()[1] / 2**20
-        tracemalloc.stop()
-    if prof:
-        buf = io.StringIO()
-        pstats.Stats(prof, stream=buf).sort_stats("tottime").print_stats(18)
-        out["profile"] = buf.getvalue()
+    )
     return out
-
-
-def engine_chunk(model) -> int:
-    """The number of draws the Monte Carlo engine evaluates per model call (its own rule)."""
-    from uqreport.propagation import montecarlo
-
-    try:
-        return int(montecarlo._chunk_size(model, montecarlo.DEFAULT_CHUNK_BYTES))
-    except AttributeError:  # the engine's private helper moved: a comparable chunk
-        return 16_384
 
 
 def evaluate_chunked(model, X, chunk: int):
@@ -188,7 +149,7 @@ def worker_compare(draws: int, n_naive: int, seed: int, repeats: int) -> dict[st
         chain = build_chain(Path(tmp))
     model, runs = chain.model, chain.study.runs
     R = len(runs)
-    chunk = engine_chunk(model)
+    chunk = H.engine_chunk(model, 16_384)
     gen = np.random.default_rng(seed)
     t0 = time.perf_counter()
     X = model.inputs.sample(draws, gen)  # the input matrix, drawn once
@@ -377,13 +338,7 @@ def main(argv: list[str] | None = None) -> int:
         f" on CPU time (chunks): {ratio_cpu:.1f}x"
     )
 
-    busy = ""
-    if cpu["min"] < 0.9 * wall["min"]:
-        busy = (
-            f"; machine busy: CPU/wall {cpu['min'] / wall['min']:.2f}, the worker waited for a"
-            " CPU, so the CPU time is the better one-core figure"
-        )
-        print("caution: " + busy[2:])
+    busy = H.busy_note(cpu, wall)
     how = "extrapolated linearly from the quick run" if args.quick else f"best of {repeats}"
     verdicts = [
         H.Verdict(

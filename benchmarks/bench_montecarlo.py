@@ -97,44 +97,10 @@ def build_model():
 
 # -- workers (each runs in a fresh process) ----------------------------------------------
 def worker_mc(draws: int, seed: int, *, trace: bool, profile: bool) -> dict[str, Any]:
-    import cProfile
-    import io
-    import pstats
-    import tracemalloc
-
-    from uqreport.propagation import propagate_montecarlo
-
-    model = build_model()
-    propagate_montecarlo(model, draws=1000, rng=seed + 1)  # warm-up: first-call costs
-    rss_before = H.current_rss_mib()
-    prof = cProfile.Profile() if profile else None
-    if trace:
-        tracemalloc.start()
-    if prof:
-        prof.enable()
-    w0, c0 = time.perf_counter(), time.process_time()
-    res = propagate_montecarlo(model, draws=draws, rng=seed)
-    wall, cpu = time.perf_counter() - w0, time.process_time() - c0
-    if prof:
-        prof.disable()
-    peak = H.peak_rss_mib()
-    out: dict[str, Any] = {
-        "wall_s": wall,
-        "cpu_s": cpu,
-        "peak_rss_mib": peak,
-        "rss_before_mib": rss_before,
-        "draws": res.draws,
-        "failed_draws": res.failed_draws,
-        "mean": res.values.tolist(),
-        "u": res.u.tolist(),
-    }
-    if trace:
-        out["traced_peak_mib"] = tracemalloc.get_traced_memory()[1] / 2**20
-        tracemalloc.stop()
-    if prof:
-        buf = io.StringIO()
-        pstats.Stats(prof, stream=buf).sort_stats("tottime").print_stats(15)
-        out["profile"] = buf.getvalue()
+    res, out = H.timed_montecarlo(
+        build_model(), draws, seed, trace=trace, profile=profile, profile_lines=15
+    )
+    out.update(mean=res.values.tolist(), u=res.u.tolist())
     return out
 
 
@@ -143,13 +109,10 @@ def worker_phases(draws: int, seed: int, repeats: int) -> dict[str, Any]:
     chunks, then the statistics (mean, covariance, both coverage intervals per output)."""
     import numpy as np
 
-    from uqreport.propagation import coverage_interval, montecarlo, shortest_interval
+    from uqreport.propagation import coverage_interval, shortest_interval
 
     model = build_model()
-    try:
-        chunk = int(montecarlo._chunk_size(model, montecarlo.DEFAULT_CHUNK_BYTES))
-    except AttributeError:  # the engine's private helper moved: a comparable chunk
-        chunk = 65_536
+    chunk = H.engine_chunk(model, 65_536)
     model.evaluate(model.inputs.sample(1000, np.random.default_rng(seed + 1)))
     clock = time.process_time
     best = {"sample_s": np.inf, "evaluate_s": np.inf, "statistics_s": np.inf}
@@ -308,13 +271,7 @@ def main(argv: list[str] | None = None) -> int:
         f" {ratio_math:.1f}x wall, {ratio_math_cpu:.1f}x CPU time"
     )
 
-    busy = ""
-    if cpu["min"] < 0.9 * wall["min"]:
-        busy = (
-            f"; machine busy: CPU/wall {cpu['min'] / wall['min']:.2f}, the worker waited for a"
-            " CPU, so the CPU time is the better one-core figure"
-        )
-        print("caution: " + busy[2:])
+    busy = H.busy_note(cpu, wall)
     extrap = " extrapolated linearly from the quick run" if args.quick else f" best of {repeats}"
     verdicts = [
         H.Verdict(

@@ -303,11 +303,10 @@ def _plan_table(res) -> str:
             "Sampling schedule: the same number of equally spaced readings; span = time of the"
         )
         lines.append(f"last reading in half-lives; u(k') in {uunit}, from the fit alone.")
+        u_now, u_best = "u(k') now", "u(k') best"
         lines.append(
-            f"  {'run':<10} {'n':>3} {'spacing now':>12} {'span now':>9} {'u(k) now':>9}"
-            f" {'best spacing':>13} {'best span':>10} {'u(k) best':>10} {'gain':>6}".replace(
-                "u(k)", "u(k')"
-            )
+            f"  {'run':<10} {'n':>3} {'spacing now':>12} {'span now':>9} {u_now:>10}"
+            f" {'best spacing':>13} {'best span':>10} {u_best:>11} {'gain':>6}"
         )
         for s in plan.schedule:
             lines.append(

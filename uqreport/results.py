@@ -179,10 +179,6 @@ def parameter_label(name: str) -> str:
     return f"{sym}({run})" if run else sym
 
 
-def _finite_or_none(x: float) -> float | None:
-    return float(x) if np.isfinite(x) else None
-
-
 def _bayes_chain(post, outputs: set[str]) -> dict[str, Any]:
     """The chain-level ``bayes`` record: settings, convergence, diagnostics per parameter,
     the posterior predictive check, the correlation of the sampled parameters, and the
@@ -233,7 +229,7 @@ def _bayes_chain(post, outputs: set[str]) -> dict[str, Any]:
         "predictive_check": {
             "share_outside": pc.share_outside,
             "expected": pc.expected_share,
-            "expected_fitted": _finite_or_none(pc.expected_share_fitted),
+            "expected_fitted": pc.expected_share_fitted,  # NaN -> null in _clean
             "readings": pc.n_readings,
             "outside": pc.n_outside,
             "log_predictive_density": pc.log_predictive_density,

@@ -17,6 +17,22 @@ def _iv(sc: fmt.Scale, low: Any, high: Any) -> str:
     return f"[{sc.fmt(fmt.as_float(low))}, {sc.fmt(fmt.as_float(high))}]"
 
 
+#: The intervals of each method beside the linear one: (record, its centre, (label, low key,
+#: high key) of each interval), as results.json names them.
+_INTERVAL_KINDS = (
+    (
+        "montecarlo",
+        "value",
+        (("MC symmetric", "low", "high"), ("MC shortest", "shortest_low", "shortest_high")),
+    ),
+    (
+        "bayes",
+        "median",
+        (("Bayes equal tails", "low", "high"), ("Bayes highest density", "hdi_low", "hdi_high")),
+    ),
+)
+
+
 def _intervals_table(ctx: ReportContext, names: list[str]) -> Any:
     q = ctx.doc["quantities"]
     has_mc = any("montecarlo" in q[n] for n in names)
@@ -43,20 +59,10 @@ def _intervals_table(ctx: ReportContext, names: list[str]) -> Any:
             unit,
             _iv(sc, v - U, v + U),
         ]
-        if has_mc:
-            mc = q[n].get("montecarlo")
-            row += (
-                [_iv(sc, mc["low"], mc["high"]), _iv(sc, mc["shortest_low"], mc["shortest_high"])]
-                if mc
-                else [None, None]
-            )
-        if has_by:
-            by = q[n].get("bayes")
-            row += (
-                [_iv(sc, by["low"], by["high"]), _iv(sc, by["hdi_low"], by["hdi_high"])]
-                if by
-                else [None, None]
-            )
+        for method, _centre, kinds in _INTERVAL_KINDS:
+            if {"montecarlo": has_mc, "bayes": has_by}[method]:
+                rec = q[n].get(method)
+                row += [_iv(sc, rec[lo], rec[hi]) if rec else None for _l, lo, hi in kinds]
         rows.append(row)
     return pdf.data_table(header, rows, widths=widths, align="LL" + "R" * (len(header) - 2))
 
@@ -103,48 +109,19 @@ def _panels(ctx: ReportContext, names: list[str]) -> list[IntervalPanel]:
         lin = q[n]["linear"]
         v, U = fmt.as_float(lin["value"]), fmt.as_float(lin["U"])
         ivs = [Interval("linear y ± U", v, v - U, v + U, "linear")]
-        mc = q[n].get("montecarlo")
-        if mc:
-            c = fmt.as_float(mc["value"])
-            ivs.append(
-                Interval(
-                    "MC symmetric",
-                    c,
-                    fmt.as_float(mc["low"]),
-                    fmt.as_float(mc["high"]),
-                    "montecarlo",
-                )
-            )
-            ivs.append(
-                Interval(
-                    "MC shortest",
-                    c,
-                    fmt.as_float(mc["shortest_low"]),
-                    fmt.as_float(mc["shortest_high"]),
-                    "montecarlo",
-                )
-            )
-        by = q[n].get("bayes")
-        if by:
-            m = fmt.as_float(by["median"])
-            ivs.append(
-                Interval(
-                    "Bayes equal tails",
-                    m,
-                    fmt.as_float(by["low"]),
-                    fmt.as_float(by["high"]),
-                    "bayes",
-                )
-            )
-            ivs.append(
-                Interval(
-                    "Bayes highest density",
-                    m,
-                    fmt.as_float(by["hdi_low"]),
-                    fmt.as_float(by["hdi_high"]),
-                    "bayes",
-                )
-            )
+        for method, centre, kinds in _INTERVAL_KINDS:
+            rec = q[n].get(method)
+            if rec:
+                ivs += [
+                    Interval(
+                        label,
+                        fmt.as_float(rec[centre]),
+                        fmt.as_float(rec[lo]),
+                        fmt.as_float(rec[hi]),
+                        method,
+                    )
+                    for label, lo, hi in kinds
+                ]
         unit = st.unit or "dimensionless"
         panels.append(
             IntervalPanel(
