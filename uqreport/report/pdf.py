@@ -335,6 +335,10 @@ def data_table(
     return t
 
 
+#: Tables of at most this many rows (header included) are kept on one page.
+SHORT_TABLE_ROWS = 16
+
+
 def titled(title: str | Markup, flowable: Flowable, note: str | Markup | None = None) -> list:
     """A small bold title and an optional note on how to read it, kept with the start of
     the table after them (a note after a long table could be left alone on a page)."""
@@ -344,6 +348,9 @@ def titled(title: str | Markup, flowable: Flowable, note: str | Markup | None = 
         out.append(para(note, s.note))
     flowable.spaceAfter = 8  # not a Spacer: that could start a page of its own
     out.append(flowable)
+    if isinstance(flowable, Table) and flowable._nrows <= SHORT_TABLE_ROWS:
+        # a short table is not split: split, it left one row alone on a page
+        return [KeepTogether(out)]
     return out
 
 
